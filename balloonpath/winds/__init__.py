@@ -1,0 +1,1 @@
+"""Wind sources, aircraft-derived observations and the Gaussian-process wind field."""
