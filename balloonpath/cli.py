@@ -16,6 +16,10 @@ from balloonpath.errors import BalloonpathError, BalloonpathWarning
 
 COMMAND_MODULES: tuple[str, ...] = (
     "plan",
+    "winds",
+    "lift",
+    "forecast",
+    "checklist",
 )
 
 app = typer.Typer(
@@ -51,11 +55,24 @@ def _show_warning(message, category, filename, lineno, file=None, line=None) -> 
         print(f"warning: {category.__name__}: {message}", file=sys.stderr)
 
 
+def _click_classes(name: str) -> tuple[type, ...]:
+    """Click's exception class ``name``, from click and from the copy typer >= 0.29 vendors."""
+    found = []
+    for module in ("click.exceptions", "typer._click.exceptions"):
+        try:
+            found.append(getattr(importlib.import_module(module), name))
+        except (ImportError, AttributeError):
+            continue
+    return tuple(found)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point: run the app; user errors become one line on stderr and exit status 2."""
     warnings.showwarning = _show_warning
     try:
-        app(args=argv, standalone_mode=False)
+        code = app(args=argv, standalone_mode=False)
+        if isinstance(code, int) and code:  # typer.Exit(n) is returned, not raised, here
+            return code
     except BalloonpathError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
@@ -68,12 +85,10 @@ def main(argv: list[str] | None = None) -> int:
         print("error: interrupted", file=sys.stderr)
         return 130
     except Exception as exc:  # click usage errors and aborts
-        import click
-
-        if isinstance(exc, click.exceptions.UsageError):
+        if isinstance(exc, _click_classes("UsageError")):
             exc.show()
             return 2
-        if isinstance(exc, click.exceptions.Abort):
+        if isinstance(exc, (*_click_classes("Abort"), typer.Abort)):
             return 1
         raise
     return 0

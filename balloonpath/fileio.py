@@ -13,19 +13,31 @@ from contextlib import contextmanager
 from pathlib import Path
 
 
+# The process umask, read once at import (os.umask can only be read by setting it).
+_UMASK = os.umask(0o022)
+os.umask(_UMASK)
+
+
 @contextmanager
 def atomic_path(path: str | Path) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it over ``path`` when the block succeeds.
 
-    The temporary file is removed when the block raises.
+    The temporary name ends with the target's suffixes (``.x.png.part-abc.png``), so writers that
+    infer the format from the name (matplotlib, pandas compression) behave as for ``path``. The
+    file gets the usual permissions (0666 minus the umask), not mkstemp's 0600. The temporary file
+    is removed when the block raises.
     """
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
+    fd, tmp_name = tempfile.mkstemp(
+        prefix=f".{target.name}.part-", suffix="".join(target.suffixes), dir=target.parent
+    )
     os.close(fd)
     tmp = Path(tmp_name)
     try:
         yield tmp
+        if tmp.exists():
+            os.chmod(tmp, 0o666 & ~_UMASK)
         os.replace(tmp, target)
     except BaseException:
         tmp.unlink(missing_ok=True)

@@ -207,6 +207,8 @@ class ChecklistSpec:
     has_radar_reflector: bool | None = key(None, doc="radar-reflective material fitted")
     cutdown_systems: int | None = key(None, low=0, high=10, doc="independent payload cut-down systems")
     night_lighting: bool | None = key(None, doc="lights fitted for flight between sunset and sunrise")
+    max_landing_speed_m_s: float | None = key(None, low=0.0, low_open=True, doc="team's landing-speed limit")
+    max_landing_energy_j: float | None = key(None, low=0.0, low_open=True, doc="team's landing-energy limit")
 
 
 TABLES: dict[str, type] = {
@@ -275,8 +277,22 @@ def _suggest(name: str, options: list[str]) -> str:
     return f"did you mean '{close[0]}'?" if close else "allowed: " + ", ".join(sorted(options))
 
 
+def _fmt(x: float) -> str:
+    """A bound as the user would write it: 90 not 90.0, 1000000 not 1e+06."""
+    return str(int(x)) if float(x).is_integer() and abs(x) < 1e15 else f"{x:g}"
+
+
+def _range_text(low: float | None, high: float | None, low_open: bool) -> str:
+    if low is not None and high is not None:
+        return f"> {_fmt(low)} and <= {_fmt(high)}" if low_open else f"in {_fmt(low)}..{_fmt(high)}"
+    if low is not None:
+        return f"> {_fmt(low)}" if low_open else f">= {_fmt(low)}"
+    return f"<= {_fmt(high)}" if high is not None else "any value"
+
+
 def _convert(plan_path: Path, table: str, name: str, value: Any, hint: Any, meta: dict) -> Any:
-    where = f"[{table}] {name} = {value!r}"
+    shown = value.isoformat() if isinstance(value, datetime) else repr(value)
+    where = f"[{table}] {name} = {shown}"
     origin = get_origin(hint)
     args = [a for a in get_args(hint) if a is not type(None)]
     if value is None:
@@ -323,14 +339,13 @@ def _convert(plan_path: Path, table: str, name: str, value: Any, hint: Any, meta
         return value
     else:
         return value
-    low, high = meta.get("low"), meta.get("high")
-    if low is not None and (number < low or (meta.get("low_open") and number == low)):
-        bound = f"> {low:g}" if meta.get("low_open") else f">= {low:g}"
-        rng = f"{bound}" if high is None else f"{low:g}..{high:g}" if not meta.get("low_open") else f"{bound} and <= {high:g}"
-        raise _fail(plan_path, where, f"is outside {rng}", f"give {meta.get('doc') or name} in range")
-    if high is not None and number > high:
-        raise _fail(plan_path, where, f"is outside {low if low is not None else '-inf'}..{high:g}",
-                    f"give {meta.get('doc') or name} in range")
+    low, high, low_open = meta.get("low"), meta.get("high"), bool(meta.get("low_open"))
+    too_low = low is not None and (number < low or (low_open and number == low))
+    if too_low or (high is not None and number > high):
+        rng = _range_text(low, high, low_open)
+        problem = f"is outside {rng[3:]}" if rng.startswith("in ") else f"is not {rng}"
+        doc = f" ({meta['doc']})" if meta.get("doc") else ""
+        raise _fail(plan_path, where, problem, f"give {name} {rng}{doc}")
     return number
 
 
@@ -445,3 +460,48 @@ def load_plan(path: str | Path) -> Plan:
     except UnicodeDecodeError:
         raise PlanError(f"{path.name}: not UTF-8 text; fix: save the plan as UTF-8") from None
     return parse_plan(data, path.resolve())
+
+
+def _type_name(hint: Any) -> str:
+    origin = get_origin(hint)
+    args = [a for a in get_args(hint) if a is not type(None)]
+    if origin is list:
+        inner = args[0]
+        return "list of tables" if dataclasses.is_dataclass(inner) else f"list of {_type_name(inner)}"
+    target = args[0] if args else hint
+    return {float: "number", int: "integer", str: "text", bool: "true/false", datetime: "date-time",
+            Path: "path"}.get(target, getattr(target, "__name__", str(target)))
+
+
+def schema_markdown() -> str:
+    """The plan reference (docs/plan.md), generated from the table declarations so it cannot drift."""
+    lines = [
+        "# Flight-plan reference",
+        "",
+        "Generated from `balloonpath/plan.py` by `balloonpath.plan.schema_markdown()`; a test keeps it in step.",
+        "Paths are relative to the plan file. Keys without a default are required when their table is given.",
+        "Give either `[rates]` (simple mode) or `[balloon]` + `[payload]` + `[parachute]` (physics mode).",
+        "",
+    ]
+    for table, cls in TABLES.items():
+        lines += [f"## [{table}]", "", (cls.__doc__ or "").strip(), "",
+                  "| key | type | default | range | meaning |", "|---|---|---|---|---|"]
+        hints = get_type_hints(cls)
+        for f in fields(cls):
+            meta = f.metadata
+            if f.default is not _MISSING:
+                default = "—" if f.default is None else repr(f.default)
+            elif f.default_factory is not _MISSING:  # type: ignore[misc]
+                default = "[]"
+            else:
+                default = "required"
+            low, high = meta.get("low"), meta.get("high")
+            rng = ""
+            if meta.get("choices"):
+                rng = " / ".join(meta["choices"])
+            elif low is not None or high is not None:
+                rng = f"{'>' if meta.get('low_open') else '≥'} {low:g}" if low is not None else ""
+                rng += (", " if rng else "") + (f"≤ {high:g}" if high is not None else "")
+            lines.append(f"| `{f.name}` | {_type_name(hints[f.name])} | {default} | {rng} | {meta.get('doc', '')} |")
+        lines.append("")
+    return "\n".join(lines)

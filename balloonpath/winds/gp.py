@@ -1,0 +1,734 @@
+"""Gaussian-process wind field: observations fused over a background, with uncertainty and correlated samples.
+
+The GP models the residual r = observation - background for u and v (two independent GPs sharing one
+kernel, see ``gp_kernels.py``) in local coordinates [east_km, north_km, alt_km, time_h] about a centre
+(azimuthal-equidistant projection, ``geodesy.LocalProjection``). Without observations the field is the
+background with a prior-only error model (``BackgroundErrorField``). Samples for the ensemble come from
+``gp_sample.py``. The model, equations, bounds and defaults are documented in docs/winds-gp.md.
+
+References
+----------
+[RW2006] C. E. Rasmussen & C. K. I. Williams, Gaussian Processes for Machine Learning, MIT Press 2006:
+    Algorithm 2.1 p. 19; §8.3.3 (projected process / DTC approximation).
+[QCR2005] J. Quinonero-Candela & C. E. Rasmussen, "A unifying view of sparse approximate Gaussian process
+    regression", JMLR 6:1939-1959 (2005) (DTC); from memory.
+[Lorenc1981] A. C. Lorenc, "A global three-dimensional multivariate statistical interpolation scheme",
+    Mon. Wea. Rev. 109:701-721 (1981) (superobservations as averages of nearby reports); from memory.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+import numpy as np
+from scipy.linalg import cho_solve, solve_triangular
+
+from balloonpath.errors import DataQualityWarning, FitWarning, InputDataError, input_error
+from balloonpath.fileio import atomic_path
+from balloonpath.geodesy import LocalProjection, normalize_longitude
+from balloonpath.winds.field import Coverage, UniformField, WindField
+from balloonpath.winds.gp_kernels import (
+    BOUNDS,
+    GPHyperparameters,
+    log_marginal_likelihood,
+    optimize_hyperparameters,
+    robust_cholesky,
+    se_kernel,
+)
+from balloonpath.winds.gp_sample import (
+    BATCH_MEMBERS,
+    MAX_NODES,
+    MEMORY_BUDGET_BYTES,
+    CorridorGrid,
+    FastProjection,
+    GridMemberWinds,
+    GridSampler,
+    choose_grid,
+)
+from balloonpath.winds.observations import WindObservations
+
+FORMAT = "balloonpath-gp-wind-field"
+FORMAT_VERSION = 1
+
+#: Background error model (from memory; order of magnitude of global-model upper-air vector-wind RMSE,
+#: about 3.5 m/s at analysis time growing to 7-8 m/s at two days): per-component sd
+#: sigma(lead) = min(SIGMA0 + GROWTH * lead_h, SIGMA_MAX).
+BACKGROUND_SIGMA0_M_S = 2.5
+BACKGROUND_GROWTH_M_S_PER_H = 0.06
+BACKGROUND_SIGMA_MAX_M_S = 10.0
+#: Lead time assumed when neither the caller nor the background gives one, h.
+DEFAULT_LEAD_TIME_H = 12.0
+
+#: Fewer (super)observations than this: hyperparameters are not learned (defaults are used).
+MIN_OBS_TO_LEARN = 20
+#: Exact GP up to this many (super)observations; beyond, the DTC inducing-point approximation.
+MAX_EXACT = 5000
+#: Inducing points of the DTC approximation.
+N_INDUCING = 1500
+#: Observations used in the hyperparameter search (a seeded random subset beyond that).
+MAX_OPTIMIZE_POINTS = 600
+#: Superobservation cell (east/north km, alt km, time h) used when there are more than MAX_EXACT rows.
+SUPEROB_CELL = np.array([10.0, 10.0, 0.25, 0.5])
+#: Observations closer than this (km, km, km, h) are duplicates and always merged.
+DUPLICATE_CELL = np.array([1e-3, 1e-3, 1e-3, 1e-4])
+#: Default corridor: half-width around the centre (km), altitude range (m), time half-range (h).
+CORRIDOR_RADIUS_KM = 300.0
+CORRIDOR_ALT_MAX_M = 40_000.0
+CORRIDOR_HALF_TIME_H = 12.0
+
+
+def background_error_sigma(lead_time_h: float) -> float:
+    """Standard deviation (m/s) of each wind component's background-forecast error at a lead time.
+
+    Notes
+    -----
+    sigma(tau) = min(2.5 + 0.06 tau, 10) m/s with tau in hours. From memory, not from a cited table:
+    upper-air vector-wind RMSE of global forecasts is of order 3-4 m/s at analysis time and grows to
+    7-8 m/s at two days; one component's sd is the vector RMSE / sqrt(2), plus representativeness.
+    """
+    tau = max(float(lead_time_h), 0.0)
+    return float(min(BACKGROUND_SIGMA0_M_S + BACKGROUND_GROWTH_M_S_PER_H * tau, BACKGROUND_SIGMA_MAX_M_S))
+
+
+# ----------------------------------------------------------------------------------------------------------
+# Posterior
+
+
+class Posterior:
+    """GP posterior of the residuals: exact (Algorithm 2.1) or DTC with inducing points.
+
+    mean(x) = k(x, P) beta (beta has one column per output), var(x) = s^2 - k^T B k with
+    exact: P = X, beta = (K + Lambda)^-1 y, B = (K + Lambda)^-1;
+    DTC ([RW2006] §8.3.3): P = Z, A = K_ZZ + K_ZX Lambda^-1 K_XZ, beta = A^-1 K_ZX Lambda^-1 y,
+    B = K_ZZ^-1 - A^-1.
+    """
+
+    def __init__(
+        self,
+        x: np.ndarray,
+        y: np.ndarray,
+        noise_var: np.ndarray,
+        hp: GPHyperparameters,
+        inducing: np.ndarray | None = None,
+    ) -> None:
+        self.x = np.asarray(x, dtype=float)
+        self.y = np.asarray(y, dtype=float)
+        self.noise_var = np.asarray(noise_var, dtype=float)
+        self.hp = hp
+        self.sparse = inducing is not None
+        if not self.sparse:
+            ky = se_kernel(self.x, self.x, hp)
+            ky[np.diag_indices_from(ky)] += self.noise_var
+            self.chol, self.jitter = robust_cholesky(ky)
+            del ky
+            self.points = self.x
+            self.beta = cho_solve((self.chol, True), self.y, check_finite=False)
+        else:
+            z = np.asarray(inducing, dtype=float)
+            kzz = se_kernel(z, z, hp)
+            self.chol_zz, self.jitter = robust_cholesky(kzz, "inducing-point kernel matrix")
+            a = kzz.copy()
+            rhs = np.zeros((z.shape[0], self.y.shape[1]))
+            for s in range(0, self.x.shape[0], 4096):  # bounded memory: m x 4096 blocks
+                kzx = se_kernel(z, self.x[s : s + 4096], hp) / np.sqrt(self.noise_var[s : s + 4096])
+                a += kzx @ kzx.T
+                rhs += kzx @ (self.y[s : s + 4096] / np.sqrt(self.noise_var[s : s + 4096])[:, None])
+            self.chol_a, _ = robust_cholesky(a, "inducing-point system matrix")
+            self.points = z
+            self.beta = cho_solve((self.chol_a, True), rhs, check_finite=False)
+
+    @property
+    def n_points(self) -> int:
+        """Number of points carrying the posterior (observations, or inducing points)."""
+        return int(self.points.shape[0])
+
+    def mean_var(self, xs: np.ndarray, want_var: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
+        """Posterior mean (k, 2) and latent variance (k,) at points xs (k, 4), in blocks of 2048."""
+        mean = np.empty((xs.shape[0], self.beta.shape[1]))
+        var = np.empty(xs.shape[0]) if want_var else None
+        s2 = self.hp.sigma_m_s**2
+        for s in range(0, xs.shape[0], 2048):
+            ks = se_kernel(self.points, xs[s : s + 2048], self.hp)  # (n, b)
+            mean[s : s + 2048] = ks.T @ self.beta
+            if want_var:
+                if not self.sparse:
+                    v = solve_triangular(self.chol, ks, lower=True, check_finite=False)
+                    red = np.sum(v * v, axis=0)
+                else:
+                    v1 = solve_triangular(self.chol_zz, ks, lower=True, check_finite=False)
+                    v2 = solve_triangular(self.chol_a, ks, lower=True, check_finite=False)
+                    red = np.sum(v1 * v1, axis=0) - np.sum(v2 * v2, axis=0)
+                var[s : s + 2048] = np.maximum(s2 - red, 0.0)
+        return mean, var
+
+    def mean_on_grid(self, grid: CorridorGrid) -> np.ndarray:
+        """Exact posterior mean at every grid node, shape (G, 2), using the kernel's separability.
+
+        mean[a,b,c,d] = sum_i s^2 kx[a,i] ky[b,i] kz[c,i] kt[d,i] beta_i, computed as one matrix product
+        (n_x n_y, n) @ (n, n_z n_t) per output.
+        """
+        ell = self.hp.lengths()
+        k1 = [np.exp(-0.5 * ((grid.axis(d)[:, None] - self.points[None, :, d]) / ell[d]) ** 2) for d in range(4)]
+        left = (k1[0][:, None, :] * k1[1][None, :, :]).reshape(-1, self.n_points)
+        right = (k1[2][:, None, :] * k1[3][None, :, :]).reshape(-1, self.n_points)
+        out = np.empty((grid.size, self.beta.shape[1]))
+        for o in range(self.beta.shape[1]):
+            out[:, o] = ((left * self.beta[:, o]) @ right.T).ravel() * self.hp.sigma_m_s**2
+        return out
+
+    def sample_coefficients(self, f_at_points: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+        """Matheron coefficients c with e(x) = f(x) + k(x, P) c a posterior deviation ([Wilson2020]).
+
+        exact: c = -(K + Lambda)^-1 (f(X) + eps), eps ~ N(0, Lambda).
+        DTC:   c = A^-T/2 xi - K_ZZ^-1 f(Z), xi ~ N(0, I) (so Cov e = k - Q + k^T A^-1 k).
+        """
+        if not self.sparse:
+            eps = rng.standard_normal(f_at_points.shape) * np.sqrt(self.noise_var)[:, None]
+            return -cho_solve((self.chol, True), f_at_points + eps, check_finite=False)
+        xi = rng.standard_normal(f_at_points.shape)
+        return solve_triangular(self.chol_a, xi, lower=True, trans="T", check_finite=False) - cho_solve(
+            (self.chol_zz, True), f_at_points, check_finite=False
+        )
+
+
+# ----------------------------------------------------------------------------------------------------------
+# Corridor and coordinates
+
+
+@dataclass(frozen=True)
+class Corridor:
+    """Where samples are drawn: a box in local coordinates about (lat0, lon0), times in POSIX s."""
+
+    lat0: float
+    lon0: float
+    time_ref_s: float
+    x_min_km: float
+    x_max_km: float
+    y_min_km: float
+    y_max_km: float
+    alt_min_m: float
+    alt_max_m: float
+    time_min_s: float
+    time_max_s: float
+
+    def box(self) -> tuple[np.ndarray, np.ndarray]:
+        """Lower and upper corners in [east_km, north_km, alt_km, time_h]."""
+        lo = [self.x_min_km, self.y_min_km, self.alt_min_m / 1e3, (self.time_min_s - self.time_ref_s) / 3600]
+        hi = [self.x_max_km, self.y_max_km, self.alt_max_m / 1e3, (self.time_max_s - self.time_ref_s) / 3600]
+        return np.array(lo), np.array(hi)
+
+
+def _to_local(proj: LocalProjection, t_ref: float, lat, lon, alt_m, time_s) -> np.ndarray:
+    lat, lon, alt_m, time_s = (np.ravel(a).astype(float) for a in np.broadcast_arrays(lat, lon, alt_m, time_s))
+    x, y = proj.to_local(lat, lon)
+    return np.column_stack([x / 1e3, y / 1e3, alt_m / 1e3, (time_s - t_ref) / 3600.0])
+
+
+def _merge_cells(x: np.ndarray, r: np.ndarray, var: np.ndarray, cell: np.ndarray):
+    """Inverse-variance average of rows falling in one cell (superobservations, [Lorenc1981]).
+
+    The merged error variance is 1 / sum(1/var_i), floored at (min_i sd_i / 2)^2 because reports from
+    one aircraft have correlated errors (from memory; documented in docs/winds-gp.md).
+    """
+    keys = np.floor(x / cell).astype(np.int64)
+    _, inverse, counts = np.unique(keys, axis=0, return_inverse=True, return_counts=True)
+    inverse = inverse.ravel()
+    if counts.size == x.shape[0]:
+        return x, r, var, 0
+    w = 1.0 / var
+    sw = np.bincount(inverse, w)
+    xm = np.column_stack([np.bincount(inverse, w * x[:, d]) / sw for d in range(4)])
+    rm = np.column_stack([np.bincount(inverse, w * r[:, o]) / sw for o in range(r.shape[1])])
+    vmin = np.full(sw.size, np.inf)
+    np.minimum.at(vmin, inverse, var)
+    vm = np.maximum(1.0 / sw, vmin / 4.0)
+    return xm, rm, vm, int(x.shape[0] - sw.size)
+
+
+# ----------------------------------------------------------------------------------------------------------
+# Fields
+
+
+class GPWindField:
+    """Background + GP posterior correction, with posterior sd and correlated samples.
+
+    Attributes
+    ----------
+    background : WindField
+    hyperparameters : GPHyperparameters
+    corridor : Corridor
+        Region of the sample grids (set at fit time; change with :meth:`with_corridor`).
+    info : dict
+        Fit summary for ``summary.json["winds"]["gp"]``.
+    """
+
+    def __init__(
+        self,
+        background: WindField,
+        hyperparameters: GPHyperparameters,
+        corridor: Corridor,
+        posterior: Posterior | None = None,
+        info: dict | None = None,
+        background_spec: dict | None = None,
+        obs_points: np.ndarray | None = None,
+    ) -> None:
+        self.background = background
+        self.hyperparameters = hyperparameters
+        self.corridor = corridor
+        self.posterior = posterior
+        self.info = dict(info or {})
+        self.background_spec = background_spec if background_spec is not None else background_spec_of(background)
+        self.projection = LocalProjection(corridor.lat0, corridor.lon0)
+        self.obs_points = np.zeros((0, 4)) if obs_points is None else np.asarray(obs_points, dtype=float)
+
+    # -- the WindField protocol
+    def _local(self, lat, lon, alt_m, time_s) -> np.ndarray:
+        return _to_local(self.projection, self.corridor.time_ref_s, lat, lon, alt_m, time_s)
+
+    def wind(self, lat, lon, alt_m, time_s) -> tuple[np.ndarray, np.ndarray]:
+        """Posterior mean u, v (m/s): background plus the GP mean of the residual."""
+        ub, vb = self.background.wind(lat, lon, alt_m, time_s)
+        if self.posterior is None:
+            return np.asarray(ub, dtype=float), np.asarray(vb, dtype=float)
+        shape = np.broadcast(np.asarray(lat), np.asarray(lon), np.asarray(alt_m), np.asarray(time_s)).shape
+        mean, _ = self.posterior.mean_var(self._local(lat, lon, alt_m, time_s), want_var=False)
+        return ub + mean[:, 0].reshape(shape), vb + mean[:, 1].reshape(shape)
+
+    def std(self, lat, lon, alt_m, time_s) -> tuple[np.ndarray, np.ndarray]:
+        """Posterior (latent) standard deviation of u and v, m/s (equal for both components)."""
+        shape = np.broadcast(np.asarray(lat), np.asarray(lon), np.asarray(alt_m), np.asarray(time_s)).shape
+        if self.posterior is None:
+            s = np.full(shape, self.hyperparameters.sigma_m_s)
+            return s, s.copy()
+        _, var = self.posterior.mean_var(self._local(lat, lon, alt_m, time_s))
+        s = np.sqrt(var).reshape(shape)
+        return s, s.copy()
+
+    def coverage(self) -> Coverage:
+        """The background's coverage."""
+        return self.background.coverage()
+
+    # -- corridor and samples
+    def with_corridor(
+        self,
+        lat_min: float,
+        lat_max: float,
+        lon_min: float,
+        lon_max: float,
+        alt_max_m: float,
+        time_min_s: float,
+        time_max_s: float,
+        alt_min_m: float = 0.0,
+    ) -> GPWindField:
+        """The same field with the sample corridor covering a lat/lon box, altitudes and times.
+
+        The box's corners and edge midpoints are projected into the field's local coordinates; the corridor
+        is their bounding rectangle. Longitudes may cross the antimeridian (lon_min > lon_max).
+        """
+        span = normalize_longitude(lon_max - lon_min) if lon_max != lon_min else 0.0
+        span = float(span) % 360.0
+        lons = normalize_longitude(lon_min + np.linspace(0.0, span, 5))
+        lats = np.linspace(lat_min, lat_max, 5)
+        la, lo = np.meshgrid(lats, lons)
+        x, y = self.projection.to_local(la.ravel(), lo.ravel())
+        c = replace(
+            self.corridor,
+            x_min_km=float(x.min() / 1e3), x_max_km=float(x.max() / 1e3),
+            y_min_km=float(y.min() / 1e3), y_max_km=float(y.max() / 1e3),
+            alt_min_m=float(alt_min_m), alt_max_m=float(alt_max_m),
+            time_min_s=float(time_min_s), time_max_s=float(time_max_s),
+        )
+        out = self.__class__.__new__(self.__class__)
+        out.__dict__.update(self.__dict__)
+        out.corridor = c
+        return out
+
+    def sample_grid(self, n_members: int) -> CorridorGrid:
+        """The corridor grid used for ``n_members`` members (node budget from the memory budget)."""
+        lo, hi = self.corridor.box()
+        budget = int(min(MAX_NODES, MEMORY_BUDGET_BYTES // (8 * max(int(n_members), 1))))
+        return choose_grid(lo, hi, self.hyperparameters.lengths(), max(budget, 16))
+
+    def sample(self, n_members: int, rng: np.random.Generator) -> GridMemberWinds:
+        """Draw ``n_members`` correlated posterior realisations (see ``gp_sample.py``).
+
+        Deterministic function of the generator state and ``n_members``. Member deviations are drawn in
+        batches of ``BATCH_MEMBERS`` (u fields then v fields of each batch).
+        """
+        n_members = int(n_members)
+        if n_members < 1:
+            raise input_error(None, "members", f"must be >= 1, got {n_members}", "ask for at least one member")
+        grid = self.sample_grid(n_members)
+        hp = self.hyperparameters
+        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior)
+        dev = np.empty((n_members, grid.size, 2), dtype=np.float32)
+        for m0 in range(0, n_members, BATCH_MEMBERS):
+            b = min(BATCH_MEMBERS, n_members - m0)
+            fields = sampler.draw(2 * b, rng)
+            dev[m0 : m0 + b, :, 0] = fields[:b]
+            dev[m0 : m0 + b, :, 1] = fields[b:]
+        mean = self.posterior.mean_on_grid(grid) if self.posterior is not None else np.zeros((grid.size, 2))
+        lo, hi = self.corridor.box()
+        lat_c, lon_c = self.projection.to_geographic(
+            np.array([lo[0], hi[0], lo[0], hi[0], 0.0]) * 1e3, np.array([lo[1], lo[1], hi[1], hi[1], 0.0]) * 1e3
+        )
+        dlon = normalize_longitude(lon_c - self.corridor.lon0)
+        fast = FastProjection(
+            self.projection, float(lat_c.min()) - 0.2, float(lat_c.max()) + 0.2, float(np.abs(dlon).max()) + 0.2
+        )
+        return GridMemberWinds(
+            self.background, fast, self.corridor.time_ref_s, grid, hp.lengths(), mean, dev
+        )
+
+    # -- persistence
+    def save(self, path: str | Path) -> Path:
+        """Write the field to a ``.npz`` file (atomic): training data, hyperparameters, corridor, background.
+
+        The file holds the (super)observations as residuals and the background's description; the posterior
+        is refactored on load (deterministic), so the file stays small.
+        """
+        meta = {
+            "format": FORMAT, "version": FORMAT_VERSION, "kind": type(self).__name__,
+            "hyperparameters": self.hyperparameters.as_dict(), "corridor": self.corridor.__dict__,
+            "background": self.background_spec, "info": self.info,
+            "sparse": bool(self.posterior is not None and self.posterior.sparse),
+        }
+        arrays = {"meta": np.frombuffer(json.dumps(meta, sort_keys=True).encode(), dtype=np.uint8)}
+        arrays["obs_points"] = self.obs_points
+        if self.posterior is not None:
+            arrays.update(x=self.posterior.x, y=self.posterior.y, noise_var=self.posterior.noise_var)
+            if self.posterior.sparse:
+                arrays["inducing"] = self.posterior.points
+        buf = io.BytesIO()
+        np.savez(buf, **arrays)
+        with atomic_path(path) as tmp:
+            tmp.write_bytes(buf.getvalue())
+        return Path(path)
+
+
+class BackgroundErrorField(GPWindField):
+    """The background with a prior-only error model: sd ``sigma_m_s`` everywhere, correlated as the kernel.
+
+    Parameters
+    ----------
+    background : WindField
+    sigma_m_s : float
+        Per-component error sd (e.g. ``background_error_sigma(lead_time_h)``).
+    length_h_km, length_z_km, length_t_h : float
+        Correlation length scales of the error (defaults: ``GPHyperparameters`` defaults, from memory).
+    center : (lat, lon) or (lat, lon, time_s)
+        Centre of the local coordinates and of the default corridor.
+    corridor_radius_km, alt_max_m, time_min_s, time_max_s
+        Default sample corridor.
+    """
+
+    def __init__(
+        self,
+        background: WindField,
+        sigma_m_s: float,
+        length_h_km: float = GPHyperparameters.length_h_km,
+        length_z_km: float = GPHyperparameters.length_z_km,
+        length_t_h: float = GPHyperparameters.length_t_h,
+        center: tuple[float, ...] = (0.0, 0.0),
+        corridor_radius_km: float = CORRIDOR_RADIUS_KM,
+        alt_max_m: float | None = None,
+        time_min_s: float | None = None,
+        time_max_s: float | None = None,
+        info: dict | None = None,
+        background_spec: dict | None = None,
+    ) -> None:
+        hp = GPHyperparameters(float(length_h_km), float(length_z_km), float(length_t_h), float(sigma_m_s))
+        corridor = default_corridor(background, center, corridor_radius_km, alt_max_m, time_min_s, time_max_s)
+        info = dict(info or {})
+        info.setdefault("mode", "background-error")
+        info.setdefault("observations", 0)
+        super().__init__(background, hp, corridor, None, info, background_spec)
+
+
+def default_corridor(
+    background: WindField,
+    center: tuple[float, ...],
+    radius_km: float,
+    alt_max_m: float | None,
+    time_min_s: float | None,
+    time_max_s: float | None,
+    obs_times: np.ndarray | None = None,
+) -> Corridor:
+    """Corridor about ``center``: +-radius_km, 0..alt_max_m (default 40 km or the background's top),
+    times from the arguments, else the background's coverage, else the observations' span +-3 h, else
+    the centre time +-12 h."""
+    cov = background.coverage()
+    lat0, lon0 = float(center[0]), float(normalize_longitude(center[1]))
+    t_ref = float(center[2]) if len(center) > 2 else None
+    if time_min_s is None or time_max_s is None:
+        if cov.time_min_s is not None and cov.time_max_s is not None:
+            time_min_s, time_max_s = cov.time_min_s, cov.time_max_s
+        elif obs_times is not None and obs_times.size:
+            time_min_s, time_max_s = float(obs_times.min()) - 3 * 3600.0, float(obs_times.max()) + 3 * 3600.0
+        else:
+            t = t_ref if t_ref is not None else 0.0
+            time_min_s, time_max_s = t - CORRIDOR_HALF_TIME_H * 3600.0, t + CORRIDOR_HALF_TIME_H * 3600.0
+    if t_ref is None:
+        t_ref = 0.5 * (time_min_s + time_max_s)
+    top = alt_max_m if alt_max_m is not None else (
+        min(cov.alt_max_m, CORRIDOR_ALT_MAX_M) if cov.alt_max_m is not None else CORRIDOR_ALT_MAX_M
+    )
+    bottom = max(cov.alt_min_m, 0.0) if cov.alt_min_m is not None else 0.0
+    r = float(radius_km)
+    return Corridor(lat0, lon0, t_ref, -r, r, -r, r, bottom, float(top), float(time_min_s), float(time_max_s))
+
+
+# ----------------------------------------------------------------------------------------------------------
+# Fit
+
+
+def _clean(obs: WindObservations) -> WindObservations:
+    arrays = [np.asarray(getattr(obs, f), dtype=float) for f in ("time_s", "lat", "lon", "alt_m", "u", "v", "sigma")]
+    ok = np.all([np.isfinite(a) for a in arrays], axis=0) & (arrays[-1] > 0)
+    if not np.all(ok):
+        warnings.warn(
+            f"wind GP: dropped {int((~ok).sum())} of {ok.size} observations with NaN/inf values or sigma <= 0",
+            DataQualityWarning,
+            stacklevel=3,
+        )
+        obs = obs.select(ok)
+    return obs
+
+
+def _center_of(obs: WindObservations) -> tuple[float, float, float]:
+    lat = float(np.mean(obs.lat))
+    ang = np.radians(obs.lon)
+    lon = float(np.degrees(np.arctan2(np.mean(np.sin(ang)), np.mean(np.cos(ang)))))
+    return lat, lon, float(np.median(obs.time_s))
+
+
+def fit_wind_field(
+    obs: WindObservations,
+    background: WindField,
+    *,
+    center: tuple[float, ...] | None = None,
+    hyperparameters: GPHyperparameters | None = None,
+    optimize: bool = True,
+    rng: np.random.Generator | None = None,
+    lead_time_h: float | None = None,
+    corridor_radius_km: float = CORRIDOR_RADIUS_KM,
+    alt_max_m: float | None = None,
+    max_exact: int = MAX_EXACT,
+    n_inducing: int = N_INDUCING,
+    background_spec: dict | None = None,
+) -> GPWindField:
+    """Fuse wind observations over a background: GP regression on the residuals (u, v).
+
+    Parameters
+    ----------
+    obs : WindObservations
+        Observations (rows with NaN or sigma <= 0 are dropped with a ``DataQualityWarning``).
+    background : WindField
+        The prior mean.
+    center : (lat, lon) or (lat, lon, time_s), optional
+        Origin of the local coordinates and of the corridor; default: the observations' centroid and median
+        time (or (0, 0) without observations).
+    hyperparameters : GPHyperparameters, optional
+        Starting values (the warm start); with ``optimize=False`` they are used as given. Default: the
+        documented defaults with sigma from the background error model.
+    optimize : bool
+        Learn the hyperparameters by maximising the log marginal likelihood (when >= 20 observations).
+    rng : numpy.random.Generator, optional
+        For the extra optimiser starts and subsets; default ``numpy.random.default_rng(0)`` (deterministic).
+    lead_time_h : float, optional
+        Background lead time for its error model; default: ``background.lead_time_h`` if present, else 12 h.
+    corridor_radius_km, alt_max_m
+        Default sample corridor (see :func:`default_corridor`).
+    max_exact, n_inducing
+        Exact GP up to ``max_exact`` (super)observations; DTC with ``n_inducing`` points beyond.
+    background_spec : dict, optional
+        How to reload the background (stored by :meth:`GPWindField.save`); default from the background.
+
+    Returns
+    -------
+    GPWindField
+        A ``BackgroundErrorField`` when there are no usable observations.
+    """
+    rng = np.random.default_rng(0) if rng is None else rng
+    if lead_time_h is None:
+        lead_time_h = float(getattr(background, "lead_time_h", DEFAULT_LEAD_TIME_H) or DEFAULT_LEAD_TIME_H)
+    sigma_b = background_error_sigma(lead_time_h)
+    hp0 = hyperparameters if hyperparameters is not None else GPHyperparameters(sigma_m_s=sigma_b)
+    obs = _clean(obs)
+    n_raw = len(obs)
+    if n_raw == 0:
+        warnings.warn(
+            "wind GP: no usable observations; the field is the background with its error model "
+            f"(sd {hp0.sigma_m_s:.2f} m/s per component)",
+            FitWarning,
+            stacklevel=2,
+        )
+        return BackgroundErrorField(
+            background, hp0.sigma_m_s, hp0.length_h_km, hp0.length_z_km, hp0.length_t_h,
+            center=center if center is not None else (0.0, 0.0), corridor_radius_km=corridor_radius_km,
+            alt_max_m=alt_max_m, info={"lead_time_h": lead_time_h}, background_spec=background_spec,
+        )
+    center = _center_of(obs) if center is None else tuple(center)
+    if len(center) < 3:
+        center = (*center, float(np.median(obs.time_s)))
+    corridor = default_corridor(
+        background, center, corridor_radius_km, alt_max_m, None, None, np.asarray(obs.time_s, dtype=float)
+    )
+    proj = LocalProjection(corridor.lat0, corridor.lon0)
+    x = _to_local(proj, corridor.time_ref_s, obs.lat, obs.lon, obs.alt_m, obs.time_s)
+    ub, vb = background.wind(obs.lat, obs.lon, obs.alt_m, obs.time_s)
+    r = np.column_stack([np.asarray(obs.u) - np.ravel(ub), np.asarray(obs.v) - np.ravel(vb)])
+    if not np.all(np.isfinite(r)):
+        raise input_error(None, "background", "gives NaN wind at some observation points",
+                          "use a background that covers the observations", cls=InputDataError)
+    var = np.asarray(obs.sigma, dtype=float) ** 2
+    x, r, var, n_dup = _merge_cells(x, r, var, DUPLICATE_CELL)
+    if n_dup:
+        warnings.warn(f"wind GP: merged {n_dup} duplicate observations", DataQualityWarning, stacklevel=2)
+    n_super = 0
+    if x.shape[0] > max_exact:
+        n0 = x.shape[0]
+        x, r, var, _ = _merge_cells(x, r, var, SUPEROB_CELL)
+        n_super = n0 - x.shape[0]
+    n = x.shape[0]
+    info: dict = {
+        "mode": "exact", "observations": n_raw, "points": n, "superobserved": n_super,
+        "duplicates_merged": n_dup, "lead_time_h": float(lead_time_h), "learned": [],
+    }
+    hp = hp0
+    if optimize and n >= MIN_OBS_TO_LEARN:
+        hp, info = _learn(x, r, var, hp0, rng, info)
+    elif optimize:
+        warnings.warn(
+            f"wind GP: only {n} observations (< {MIN_OBS_TO_LEARN}); hyperparameters not learned, using "
+            f"defaults {_fmt_hp(hp0)}",
+            FitWarning,
+            stacklevel=2,
+        )
+    inducing = None
+    if n > max_exact:
+        pick = np.sort(rng.choice(n, size=min(n_inducing, n), replace=False))
+        inducing = x[pick]
+        info["mode"] = "dtc"
+        info["inducing_points"] = int(pick.size)
+    posterior = Posterior(x, r, var, hp, inducing)
+    if not posterior.sparse:
+        info["log_marginal_likelihood"] = float(
+            log_marginal_likelihood(hp.to_log(), x, r, var, np.zeros(4, bool))[0]
+        ) if n <= 2000 else None
+    info["hyperparameters"] = hp.as_dict()
+    obs_points = np.column_stack([obs.lat, obs.lon, obs.alt_m, obs.time_s])
+    return GPWindField(background, hp, corridor, posterior, info, background_spec, obs_points)
+
+
+def _fmt_hp(hp: GPHyperparameters) -> str:
+    return (f"horizontal {hp.length_h_km:.0f} km, vertical {hp.length_z_km:.2f} km, time {hp.length_t_h:.1f} h, "
+            f"sigma {hp.sigma_m_s:.2f} m/s")
+
+
+def _learn(x, r, var, hp0, rng, info):
+    """Hyperparameter search on a seeded subset; dimensions the data cannot inform stay at their start."""
+    span = x.max(axis=0) - x.min(axis=0)
+    span_h = float(np.hypot(span[0], span[1]))
+    free = np.array([
+        span_h >= BOUNDS["length_h_km"][0], span[2] >= BOUNDS["length_z_km"][0],
+        span[3] >= BOUNDS["length_t_h"][0], True,
+    ])
+    names = ("horizontal", "vertical", "time")
+    fixed = [names[i] for i in range(3) if not free[i]]
+    if fixed:
+        warnings.warn(
+            "wind GP: the observations span too little in " + ", ".join(fixed)
+            + " to learn that length scale; kept the default (" + _fmt_hp(hp0) + ")",
+            FitWarning,
+            stacklevel=3,
+        )
+    sub = np.arange(x.shape[0])
+    if sub.size > MAX_OPTIMIZE_POINTS:
+        sub = np.sort(rng.choice(sub.size, size=MAX_OPTIMIZE_POINTS, replace=False))
+    res = optimize_hyperparameters(x[sub], r[sub], var[sub], hp0, free, rng)
+    if res.at_bounds:
+        warnings.warn(
+            "wind GP: learned " + ", ".join(res.at_bounds) + " at the edge of its allowed range "
+            f"({_fmt_hp(res.hyperparameters)})",
+            FitWarning,
+            stacklevel=3,
+        )
+    info = dict(info, learned=list(res.learned), optimizer_points=int(sub.size), optimizer_starts=res.n_starts,
+                at_bounds=list(res.at_bounds))
+    return res.hyperparameters, info
+
+
+# ----------------------------------------------------------------------------------------------------------
+# Background description and loading
+
+
+def background_spec_of(background: WindField) -> dict:
+    """How a saved field refers to its background: a uniform wind's values, or a source path and type."""
+    if isinstance(background, UniformField):
+        return {"kind": "uniform", "u_m_s": background.u, "v_m_s": background.v}
+    for attr in ("source_path", "path"):
+        p = getattr(background, attr, None)
+        if p is not None:
+            return {"kind": "file", "path": str(p), "type": type(background).__name__}
+    return {"kind": type(background).__name__}
+
+
+def default_background_loader(spec: dict) -> WindField:
+    """Rebuild a background from its description: ``uniform`` here; files through ``winds.sources``."""
+    if spec.get("kind") == "uniform":
+        return UniformField(spec["u_m_s"], spec["v_m_s"])
+    if spec.get("kind") == "file":
+        try:
+            from balloonpath.winds import sources  # written by the wind-sources engineer
+        except ImportError:
+            sources = None
+        if sources is not None and hasattr(sources, "load_background"):
+            return sources.load_background(spec["path"])
+    raise input_error(
+        None, "background", f"cannot rebuild the background {spec} of this fitted field",
+        "pass background_loader= to load_wind_field, or name the background in the plan's [winds] table",
+    )
+
+
+def load_wind_field(
+    path: str | Path, background_loader: Callable[[dict], WindField] | None = None
+) -> GPWindField:
+    """Read a field written by :meth:`GPWindField.save`.
+
+    Parameters
+    ----------
+    path : str or Path
+    background_loader : callable(spec) -> WindField, optional
+        Rebuilds the background from the stored description; default :func:`default_background_loader`.
+
+    Raises
+    ------
+    InputDataError
+        When the file is not a balloonpath GP wind field.
+    """
+    path = Path(path)
+    try:
+        with np.load(path, allow_pickle=False) as data:
+            arrays = {k: data[k] for k in data.files}
+        meta = json.loads(arrays["meta"].tobytes().decode())
+    except (OSError, ValueError, KeyError) as exc:
+        raise input_error(path, "file", f"is not a fitted wind field ({type(exc).__name__})",
+                          "give a file written by `balloonpath winds fit`") from None
+    if meta.get("format") != FORMAT:
+        raise input_error(path, "format", f"expected {FORMAT}, got {meta.get('format')}",
+                          "give a file written by `balloonpath winds fit`")
+    loader = background_loader or default_background_loader
+    background = loader(meta["background"])
+    hp = GPHyperparameters(**meta["hyperparameters"])
+    corridor = Corridor(**meta["corridor"])
+    posterior = None
+    if "x" in arrays:
+        posterior = Posterior(arrays["x"], arrays["y"], arrays["noise_var"], hp, arrays.get("inducing"))
+    field = GPWindField(background, hp, corridor, posterior, meta["info"], meta["background"], arrays["obs_points"])
+    return field
