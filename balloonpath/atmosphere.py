@@ -236,8 +236,10 @@ class SoundingAtmosphere:
     Temperature is interpolated linearly in altitude and pressure log-linearly (exact for an isothermal
     layer); density follows from the ideal-gas law rho = p / (R T) with the USSA 1976 gas constant of dry air
     (humidity is neglected: at 30 °C and 100 % relative humidity virtual temperature is about 3 % higher, so
-    near-surface density is overestimated by up to 3 %). Below the lowest level the lowest values are held;
-    above the top the USSA 1976 profile is used, with its pressure scaled to match the sounding at the top.
+    near-surface density is overestimated by up to 3 %). Below the lowest level the lowest temperature is
+    held and pressure follows the isothermal hydrostatic law p = p0 exp(-g0 (z0 - z) / (R T0)) (holding
+    the pressure instead would make the air 1.2 % too thin 100 m below the first level); above the top
+    the USSA 1976 profile is used, with its pressure scaled to match the sounding at the top.
 
     Parameters
     ----------
@@ -271,6 +273,8 @@ class SoundingAtmosphere:
         z = np.asarray(z_m, dtype=float)
         t = np.interp(z, self.alt_m, self.temperature_k)
         logp = np.interp(z, self.alt_m, np.log(self.pressure_pa))
+        z0, t0 = self.alt_m[0], self.temperature_k[0]
+        logp = np.where(z < z0, np.log(self.pressure_pa[0]) + G0 * (z0 - z) / (R_AIR * t0), logp)
         p = np.exp(logp)
         above = z > self._top
         if np.any(above):

@@ -1,7 +1,7 @@
 """Atomic file output: write to a temporary name in the same folder, then rename.
 
-A reader (a map viewer reloading a file, a script polling a folder) never sees half a file, and a failed run
-leaves no partial output behind.
+A reader (a map viewer reloading a file, a script polling a folder) never sees half a file, and a
+failed run leaves no partial output behind.
 """
 
 from __future__ import annotations
@@ -12,7 +12,6 @@ from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
-
 # The process umask, read once at import (os.umask can only be read by setting it).
 _UMASK = os.umask(0o022)
 os.umask(_UMASK)
@@ -22,16 +21,15 @@ os.umask(_UMASK)
 def atomic_path(path: str | Path) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it over ``path`` when the block succeeds.
 
-    The temporary name ends with the target's suffixes (``.x.png.part-abc.png``), so writers that
-    infer the format from the name (matplotlib, pandas compression) behave as for ``path``. The
-    file gets the usual permissions (0666 minus the umask), not mkstemp's 0600. The temporary file
-    is removed when the block raises.
+    The temporary name is hidden and ends in ``.part`` (``.track.csv.abc123.part``): writers that
+    infer the format or append an extension from the name (``savefig``, ``np.savez``, pandas
+    ``compression="infer"``) must be given the format explicitly. The file gets the usual
+    permissions (0666 minus the umask), not mkstemp's 0600. The temporary file is removed when the
+    block raises.
     """
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp_name = tempfile.mkstemp(
-        prefix=f".{target.name}.part-", suffix="".join(target.suffixes), dir=target.parent
-    )
+    fd, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
     os.close(fd)
     tmp = Path(tmp_name)
     try:

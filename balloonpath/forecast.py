@@ -75,9 +75,9 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
         info["sources"].append(f"gridded forecast {w.grid.name}")
     else:
         from balloonpath.winds.sounding import (
+            SoundingField,
             atmosphere_from_soundings,
             read_sounding,
-            SoundingField,
         )
 
         soundings = [read_sounding(path) for path in w.sounding]
@@ -356,7 +356,8 @@ class WrittenForecast:
 
 def write_outputs(result: ForecastResult, plan: Plan, out_dir: str | Path, report: bool = True) -> WrittenForecast:
     """Compute the zones and write every output file of a forecast (each atomically)."""
-    from balloonpath import plots, zones as zones_mod
+    from balloonpath import plots
+    from balloonpath import zones as zones_mod
     from balloonpath.export import geojson, kml, tables
 
     out = Path(out_dir)

@@ -71,7 +71,7 @@ def step_east_north(
     a pure east step follows the parallel), second-order accurate in the step length. For a 10 km
     step at |lat| <= 80 deg the geodesic distance from start to end equals hypot(east, north) to a
     few centimetres and the geodesic azimuths at start and end average to atan2(east, north)
-    within 1e-4 deg. (The geodesic and the rhumb line of one step separate by about
+    within 2e-4 deg. (The geodesic and the rhumb line of one step separate by about
     s^2 tan(phi) / (2 N): 8 m at 45 deg for s = 10 km.)
 
     Near the poles the east/north frame turns quickly, and it is undefined at a pole. Within

@@ -9,8 +9,8 @@ References
 ----------
 [Okabe2008] M. Okabe and K. Ito, "Color Universal Design (CUD): how to make figures and
     presentations that are friendly to colorblind people" (2008): black, orange #E69F00, sky blue
-    #56B4E9, bluish green
-    #009E73, yellow #F0E442, blue #0072B2, vermillion #D55E00, reddish purple #CC79A7 (from memory).
+    #56B4E9, bluish green #009E73, yellow #F0E442, blue #0072B2, vermillion #D55E00, reddish purple
+    #CC79A7 (from memory).
 """
 
 from __future__ import annotations

@@ -1,11 +1,11 @@
 """The flight report: one self-contained ``report.html`` a team can open offline, print or mail.
 
-Everything is inline: the stylesheet (``balloonpath/data/report.css``), the figures as PNG data URIs
-(``map.png`` and ``profile.png`` from the forecast folder, and the wind profile drawn here). There are
-no scripts, no fonts or images from the network, and a Content-Security-Policy that forbids them, so
-the page reads the same on a laptop in a field as in a mail client. All text from inputs is escaped.
-The output depends only on its inputs (no generation time; PNGs without software metadata), so the
-same forecast gives the same bytes. See docs/report.md.
+Everything is inline: the stylesheet (``balloonpath/data/report.css``) and the figures as PNG data
+URIs (``map.png`` and ``profile.png`` from the forecast folder, and the wind profile drawn here).
+There are no scripts, no fonts or images from the network, and a Content-Security-Policy that
+forbids them, so the page reads the same on a laptop in a field as in a mail client. All text from
+inputs is escaped. The output depends only on its inputs (no generation time; PNGs without
+software metadata), so the same forecast gives the same bytes. See docs/report.md.
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ import io
 import json
 import math
 import warnings
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from importlib import resources
@@ -78,7 +78,7 @@ def _finite(x: Any) -> bool:
 
 
 def fmt_number(x: Any, decimals: int = 0, unit: str = "") -> str:
-    """A number with ``decimals`` digits, thousands grouped by a narrow space; an em dash if missing.
+    """A number with ``decimals`` digits, thousands grouped by a narrow space; a dash if missing.
 
     Parameters
     ----------
@@ -107,6 +107,11 @@ def fmt_percent(p: Any) -> str:
     if not _finite(p):
         return _DASH
     return f"{100.0 * float(p):.1f}{_NNBSP}%"
+
+
+def fmt_degrees(x: Any) -> str:
+    """An angle in whole degrees, ``"75°"``."""
+    return f"{float(x):.0f}°" if _finite(x) else _DASH
 
 
 def compass_point(bearing_deg: float) -> str:
@@ -187,6 +192,18 @@ def fmt_time(seconds: Any, zone: ZoneInfo | None = None, ref_s: float | None = N
         same_day = ref.date() == moment.date()
     text = moment.strftime("%H:%M") if same_day else moment.strftime("%Y-%m-%d %H:%M")
     return f"{text} {label}"
+
+
+def fmt_time_range(start_s: Any, end_s: Any, zone: ZoneInfo | None = None,
+                   ref_s: float | None = None) -> str:
+    """Two moments as ``"14:36\u201315:03 UTC"`` (zone label once when both share it)."""
+    a, b = fmt_time(start_s, zone, ref_s), fmt_time(end_s, zone, ref_s)
+    if _DASH in (a, b):
+        return f"{a} \u2013 {b}"
+    (a_time, a_label), (b_time, b_label) = a.rsplit(" ", 1), b.rsplit(" ", 1)
+    if a_label == b_label:
+        return f"{a_time}\u2013{b_time} {a_label}"
+    return f"{a} \u2013 {b}"
 
 
 def _utc_offset(seconds: float, zone: ZoneInfo) -> str:
@@ -411,9 +428,10 @@ def wind_profile_png(profile: Mapping[str, np.ndarray], burst_alt_m: float | Non
         ax.plot(mean, alt_km, style, color=colours[role], linewidth=width, label=label)
     ax.axvline(0.0, color="#4f5b66", linewidth=0.8)
     if burst_alt_m is not None and _finite(burst_alt_m):
-        ax.axhline(float(burst_alt_m) / 1000.0, color=colours["burst"], linewidth=1.0, linestyle=":")
-        ax.annotate("burst (nominal)", (0.99, float(burst_alt_m) / 1000.0), xycoords=("axes fraction",
-                    "data"), ha="right", va="bottom", fontsize=8, color=colours["burst"])
+        top_km = float(burst_alt_m) / 1000.0
+        ax.axhline(top_km, color=colours["burst"], linewidth=1.0, linestyle=":")
+        ax.annotate("burst (nominal)", (0.99, top_km), xycoords=("axes fraction", "data"),
+                    ha="right", va="bottom", fontsize=8, color=REPORT_COLOURS["speed"])
     ax.set_xlabel("wind, m/s (shaded: \u00b12\u03c3)")
     ax.set_ylabel("altitude above sea level, km")
     ax.grid(True, color=colours["grid"], linewidth=0.6)
@@ -444,11 +462,12 @@ def _data_uri(png: bytes) -> str:
     return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
 
 
-def _figure(png: bytes | None, alt: str, caption: str, missing: str) -> str:
+def _figure(png: bytes | None, alt: str, caption: str, missing: str, css: str = "") -> str:
+    open_tag = f'<figure class="{css}">' if css else "<figure>"
     if png is None:
-        return f'<figure><div class="missing">{_e(missing)}</div><figcaption>{_e(caption)}' \
-               "</figcaption></figure>"
-    return (f'<figure><img src="{_data_uri(png)}" alt="{_e(alt)}">'
+        return (f'{open_tag}<div class="missing">{_e(missing)}</div>'
+                f"<figcaption>{_e(caption)}</figcaption></figure>")
+    return (f'{open_tag}<img src="{_data_uri(png)}" alt="{_e(alt)}">'
             f"<figcaption>{_e(caption)}</figcaption></figure>")
 
 
@@ -542,7 +561,8 @@ def _kv_table(rows: Sequence[tuple[str, str]], caption: str = "") -> str:
     return f'<table class="kv">{cap}<tbody>{body}</tbody></table>'
 
 
-def plan_rows(plan: Any, zone: ZoneInfo | None) -> tuple[list[tuple[str, str]], list[tuple[str, str]]]:
+def plan_rows(plan: Any, zone: ZoneInfo | None
+              ) -> tuple[list[tuple[str, str]], list[tuple[str, str]]]:
     """Rows of the plan summary: (launch rows, flight-train and ensemble rows)."""
     la = plan.launch
     t = la.time.timestamp()
@@ -610,12 +630,15 @@ def plan_rows(plan: Any, zone: ZoneInfo | None) -> tuple[list[tuple[str, str]], 
 
 
 # ------------------------------------------------------------------------------------ key cards
-def _card(label: str, big: str, *subs: str) -> str:
+def _card(label: str, big: str, *subs: str, wide: bool = False) -> str:
     sub = "".join(f'<span class="sub">{_e(s)}</span>' for s in subs if s)
-    return f'<div class="card"><dt>{_e(label)}</dt><dd><span class="big">{_e(big)}</span>{sub}</dd></div>'
+    css = "card wide" if wide else "card"
+    return (f'<div class="{css}"><dt>{_e(label)}</dt><dd><span class="big">{_e(big)}</span>{sub}'
+            "</dd></div>")
 
 
-def _ellipse_of(summary: Mapping[str, Any], p: float, key: str = "ellipses") -> Mapping[str, Any] | None:
+def _ellipse_of(summary: Mapping[str, Any], p: float,
+                key: str = "ellipses") -> Mapping[str, Any] | None:
     for e in (summary.get("ensemble") or {}).get(key) or []:
         if _finite(e.get("probability")) and abs(float(e["probability"]) - p) < 1e-6:
             return e
@@ -635,7 +658,8 @@ def key_cards(summary: Mapping[str, Any], zone: ZoneInfo | None) -> str:
     cards = []
     cards.append(_card(
         "Landing point (nominal)", fmt_latlon(land.get("latitude"), land.get("longitude")),
-        f"ground {fmt_number(land.get('elevation_m'), 0, 'm')}",
+        f"ground {fmt_number(land.get('elevation_m'), 0, 'm')}; latitude, longitude in degrees "
+        "(WGS84)", wide=True,
     ))
     cards.append(_card(
         "Landing time", fmt_time(t_land, None, t0),
@@ -644,7 +668,8 @@ def key_cards(summary: Mapping[str, Any], zone: ZoneInfo | None) -> str:
     bearing = land.get("bearing_deg")
     cards.append(_card(
         "Distance from launch", fmt_number(_km(land.get("distance_m")), 1, "km"),
-        f"bearing {fmt_number(bearing, 0, '°')} ({compass_point(bearing)})" if _finite(bearing)
+        f"bearing {fmt_degrees(bearing)} ({compass_point(bearing)}) from the launch site"
+        if _finite(bearing)
         else "",
     ))
     if t_burst is not None:
@@ -665,7 +690,7 @@ def key_cards(summary: Mapping[str, Any], zone: ZoneInfo | None) -> str:
             "90 % landing ellipse",
             f"{fmt_number(_km(e90.get('semi_major_m')), 1)} × "
             f"{fmt_number(_km(e90.get('semi_minor_m')), 1, 'km')}",
-            f"semi-axes; major axis {fmt_number(e90.get('major_axis_azimuth_deg'), 0, '°')}",
+            f"semi-axes; major axis toward {fmt_degrees(e90.get('major_axis_azimuth_deg'))}",
         ))
     cards.append(_card(
         "90 % landing region", fmt_number(ens.get("region_90_area_km2"), 1, "km²"),
@@ -674,8 +699,9 @@ def key_cards(summary: Mapping[str, Any], zone: ZoneInfo | None) -> str:
     p05, p95 = _parse_time(ens.get("landing_time_p05")), _parse_time(ens.get("landing_time_p95"))
     if p05 is not None and p95 is not None:
         cards.append(_card(
-            "Landing window (5–95 %)", f"{fmt_time(p05, None, t0)} – {fmt_time(p95, None, t0)}",
-            f"{fmt_time(p05, zone, t0)} – {fmt_time(p95, zone, t0)}" if zone is not None else "",
+            "Landing window (5–95 %)", *_split_label(fmt_time_range(p05, p95, None, t0),
+                                                     fmt_time_range(p05, p95, zone, t0)
+                                                     if zone is not None else ""),
         ))
     water = probs.get("water")
     cards.append(_card("Chance of landing on water",
@@ -698,6 +724,14 @@ def key_cards(summary: Mapping[str, Any], zone: ZoneInfo | None) -> str:
     return f'<dl class="cards">{"".join(cards)}</dl>'
 
 
+def _split_label(utc_range: str, local_range: str) -> tuple[str, str]:
+    """``("14:36–15:03", "UTC · 16:36–17:03 CEST")``: the big number without its zone label."""
+    big, _, label = utc_range.rpartition(" ")
+    if not big or "\u2013" not in big or " " in big:
+        return utc_range, local_range
+    return big, f"{label} · {local_range}" if local_range else label
+
+
 def _km(x: Any) -> float | None:
     return float(x) / 1000.0 if _finite(x) else None
 
@@ -714,8 +748,8 @@ def _statistics_table(stats: Sequence[StatRow]) -> str:
         rows.append(f"<tr><th scope=\"row\">{_e(r.label)}, {_e(r.unit)}</th>{cells}</tr>")
     counts = sorted({r.count for r in stats})
     n_text = " / ".join(str(c) for c in counts)
-    cap = (f"<caption>Over {n_text} ensemble members (the nominal run, member 0, is shown apart and "
-           "left out of the statistics).</caption>")
+    cap = (f"<caption>Over {n_text} ensemble members (the nominal run, member 0, is shown apart "
+           "and left out of the statistics).</caption>")
     return f"<table>{cap}{head}<tbody>{''.join(rows)}</tbody></table>"
 
 
@@ -728,7 +762,7 @@ def _ellipse_table(summary: Mapping[str, Any]) -> str:
                 f"<tr><td>{what}</td><td class=\"num\">{_e(fmt_percent(e.get('probability')))}</td>"
                 f"<td class=\"num\">{_e(fmt_number(_km(e.get('semi_major_m')), 2, 'km'))}</td>"
                 f"<td class=\"num\">{_e(fmt_number(_km(e.get('semi_minor_m')), 2, 'km'))}</td>"
-                f"<td class=\"num\">{_e(fmt_number(e.get('major_axis_azimuth_deg'), 0, '°'))}</td>"
+                f"<td class=\"num\">{_e(fmt_degrees(e.get('major_axis_azimuth_deg')))}</td>"
                 "</tr>"
             )
     if not rows:
@@ -844,9 +878,11 @@ def render_report(result: ForecastResult, zones: Any, summary: Mapping[str, Any]
     folder_path = Path(folder) if folder is not None else None
     zone = local_zone(getattr(plan.launch, "time_zone", ""), result.launch_lat, result.launch_lon)
     t0 = float(result.launch_time_s)
-    site = plan.launch.site_name or f"launch at {fmt_latlon(result.launch_lat, result.launch_lon, 3)}"
+    site = (plan.launch.site_name
+            or f"launch at {fmt_latlon(result.launch_lat, result.launch_lon, 3)}")
     when_utc = fmt_time(t0)
-    when_local = f" · {fmt_time(t0, zone)} local ({_utc_offset(t0, zone)})" if zone is not None else ""
+    when_local = (f" · {fmt_time(t0, zone)} local ({_utc_offset(t0, zone)})"
+                  if zone is not None else "")
     plan_name = str(summary.get("plan") or Path(result.plan_path).name)
 
     map_png = _read_png(folder_path / "map.png") if folder_path is not None else None
@@ -866,16 +902,23 @@ def render_report(result: ForecastResult, zones: Any, summary: Mapping[str, Any]
         f'<p class="meta">{_e(plan_name)} · {_e(result.mode)} mode · '
         f"{_e(result.n_members)} members · seed {_e(result.seed)}</p></header>"
     )
+    body.append('<p class="caution-line">\u26a0 An estimate with uncertainty, not a clearance: '
+                "the local aviation authority decides whether the flight may take place. Read "
+                '<a href="#h-caution">Before you fly</a>.</p>')
     body.append('<section aria-labelledby="h-key"><h2 id="h-key">Key numbers</h2>'
                 f"{key_cards(summary, zone)}</section>")
-    body.append('<section class="caution" aria-labelledby="h-caution">'
-                '<h2 id="h-caution">\u26a0 Before you fly</h2><ul>'
-                + "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS) + "</ul></section>")
     body.append(
         '<section aria-labelledby="h-map"><h2 id="h-map">Flight and landing zones</h2>'
         + _figure(map_png, "Map of the forecast flight and landing zones",
                   "Map: launch, nominal track, ensemble landings and landing zones.",
-                  "map.png was not found in the forecast folder.")
+                  "map.png was not found in the forecast folder.", css="map")
+        + "</section>"
+    )
+    body.append('<section class="caution" aria-labelledby="h-caution">'
+                '<h2 id="h-caution">\u26a0 Before you fly</h2><ul>'
+                + "".join(f"<li>{_e(c)}</li>" for c in CAUTIONS) + "</ul></section>")
+    body.append(
+        '<section aria-labelledby="h-profile"><h2 id="h-profile">Altitude</h2>'
         + _figure(profile_png, "Altitude of the flight against time",
                   "Profile: altitude against time for the nominal flight and ensemble members.",
                   "profile.png was not found in the forecast folder.")

@@ -3,7 +3,7 @@
 Every terrain object answers ``elevation_m(lat, lon) -> ndarray`` (metres above mean sea level) for
 arrays of any broadcastable shape, by bilinear interpolation between grid posts.
 
-SRTM ``.hgt`` tiles (the published format of the Shuttle Radar Topography Mission height files):
+SRTM ``.hgt`` tiles ([SRTM], the published format of the Shuttle Radar Topography Mission files):
 a square grid of big-endian signed 16-bit integers, rows from north to south, columns from west to
 east, 1201 x 1201 posts (3 arc-second) or 3601 x 3601 posts (1 arc-second) covering one degree, with
 the posts on the tile's edges shared by neighbouring tiles. The file is named after its south-west
@@ -13,7 +13,7 @@ corner, e.g. ``N38W099.hgt`` covers 38..39 N, 99..98 W. Voids are -32768.
 :class:`~balloonpath.errors.DataQualityWarning` reports how many); a tile with no valid post at all
 is read as 0 m with a warning.
 
-GeoTIFF: a single-band raster in geographic coordinates (degrees), north-up, georeferenced with the
+GeoTIFF ([GeoTIFF10]): a single-band raster in geographic coordinates (degrees), north-up, with the
 GeoTIFF tags ModelTiepointTag (33922) and ModelPixelScaleTag (33550); ModelTransformationTag (34264)
 is accepted only without rotation. ``GTRasterTypeGeoKey`` (1025) selects pixel-is-area (default:
 the tie point is the corner of the first pixel, values sit at pixel centres) or pixel-is-point.

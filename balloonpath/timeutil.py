@@ -46,6 +46,6 @@ def parse_iso(text: str) -> float:
     return posix_from_datetime(moment)
 
 
-def parse_iso_array(values: "np.ndarray | list[str]") -> np.ndarray:
+def parse_iso_array(values: np.ndarray | list[str]) -> np.ndarray:
     """Vector form of :func:`parse_iso` (float64 POSIX seconds)."""
     return np.array([parse_iso(str(v)) for v in values], dtype=float)

@@ -2,8 +2,7 @@
 
 Readers of particular formats (the DWD high-resolution radiosonde file is read by
 ``balloonpath.winds.sounding.read_dwd_highres``) return a :class:`FlownTrack`; the recovery,
-fly-back and
-verification code consume it.
+fly-back and verification code consume it.
 """
 
 from __future__ import annotations

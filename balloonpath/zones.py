@@ -53,8 +53,7 @@ DEFAULT_PROBABILITIES = (0.5, 0.9, 0.95)
 REGION_PROBABILITY = 0.9
 
 
-# ---------------------------------------------------------------------------------------------
-# ellipses
+# ----------------------------------------------------------------------------------- ellipses
 def chi2_scale(probability: float) -> float:
     """Radius, in standard deviations, of the ellipse holding ``probability`` of a bivariate normal.
 
@@ -233,8 +232,7 @@ def ellipse_from_points(x_m: np.ndarray, y_m: np.ndarray, probability: float) ->
     )
 
 
-# ------------------------------------------------------------------------------ non-parametric
-# region
+# ---------------------------------------------------------------------- non-parametric region
 @dataclass(frozen=True)
 class Region:
     """A region of the local plane made of one or more closed counter-clockwise rings.

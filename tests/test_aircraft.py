@@ -10,18 +10,17 @@ import pytest
 from balloonpath.atmosphere import SoundingAtmosphere, StandardAtmosphere, usa1976
 from balloonpath.errors import DataQualityWarning, InputDataError
 from balloonpath.timeutil import parse_iso
-from balloonpath.units import KNOT_M_S
 from balloonpath.winds.aircraft import (
     KIND_DERIVED,
     AircraftStates,
     QCConfig,
+    ReadCounts,
     altitude_from_pressure_altitude,
     derive_observations,
     heading_and_ground_speed,
     observation_sigma_m_s,
     quality_control,
     read_report_table,
-    ReadCounts,
     superobservations,
     wind_from_triangle,
 )

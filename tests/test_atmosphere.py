@@ -297,3 +297,18 @@ def test_altitude_of_pressure_in_sounding():
         float(atm.altitude_from_pressure(10_000.0)), abs=0.02)
     with pytest.raises(PhysicsError, match=r"pressure 10\.0 Pa is not between"):
         atm.altitude_of_pressure_in(std, 10.0)
+
+
+def test_sounding_below_lowest_level_is_hydrostatic():
+    # Below the first level: isothermal hydrostatic extension p = p0 exp(g0 dz / (R T0)), the
+    # hypsometric equation for a constant-temperature layer ([WH2006] §3.2; from memory).
+    air = atm.SoundingAtmosphere([300.0, 2_000.0], [290.0, 280.0], [97_000.0, 79_000.0])
+    st = air.state(np.array([200.0, 300.0]))
+    # R = R*/M0 = 287.0531 J/(kg K) as printed (REFERENCES §1a, 7 digits): rel 1e-6
+    expected = 97_000.0 * np.exp(9.80665 * 100.0 / (287.0531 * 290.0))
+    assert st.pressure_pa[0] == pytest.approx(expected, rel=1e-6)
+    assert st.temperature_k[0] == 290.0
+    # continuity with the hydrostatic balance just above the first level: dp/dz = -rho g0
+    dz = 0.01
+    p_lo, p_hi = air.state(np.array([300.0 - dz, 300.0])).pressure_pa
+    assert (p_hi - p_lo) / dz == pytest.approx(-float(st.density_kg_m3[1]) * 9.80665, rel=1e-4)

@@ -37,15 +37,13 @@ def test_failure_keeps_the_previous_file(tmp_path):
     assert [p.name for p in tmp_path.iterdir()] == ["flight.kml"]
 
 
-def test_temporary_name_keeps_the_suffix_and_is_hidden_beside_the_target(tmp_path):
-    # writers that infer the format from the name (matplotlib savefig, pandas compression)
-    # must see the target's suffix
-    with atomic_path(tmp_path / "members.csv.gz") as tmp:
+def test_temporary_file_is_hidden_beside_the_target(tmp_path):
+    # same folder (so the final rename is atomic), hidden, ".part" suffix (design.md)
+    with atomic_path(tmp_path / "members.csv") as tmp:
         assert tmp.parent == tmp_path
-        assert tmp.name.startswith(".members.csv.gz.")
-        assert tmp.name.endswith(".csv.gz")
+        assert tmp.name.startswith(".members.csv.") and tmp.suffix == ".part"
         tmp.write_bytes(b"x")
-    assert (tmp_path / "members.csv.gz").read_bytes() == b"x"
+    assert (tmp_path / "members.csv").read_bytes() == b"x"
 
 
 def test_permissions_follow_the_umask(tmp_path):

@@ -1,5 +1,4 @@
-"""Terrain: SRTM .hgt tiles and GeoTIFF rasters written here, bilinear values checked
-analytically."""
+"""Terrain: SRTM .hgt tiles and GeoTIFF rasters written here; bilinear values checked exactly."""
 
 from __future__ import annotations
 

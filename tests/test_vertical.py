@@ -1,5 +1,4 @@
-"""The vertical model: parameters from plans, speeds by phase, perturbations, consistency with
-lift."""
+"""The vertical model: plan parameters, speeds by phase, perturbations, consistency with lift."""
 
 from __future__ import annotations
 

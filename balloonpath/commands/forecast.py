@@ -19,7 +19,7 @@ CAUTION = (
 DEMO_PLAN = Path(__file__).resolve().parents[2] / "scenarios" / "prairie" / "plan.toml"
 
 
-def _print_summary(console: Console, written: "WrittenForecast") -> None:  # noqa: F821
+def _print_summary(console: Console, written: WrittenForecast) -> None:  # noqa: F821
     s = written.summary
     land, burst, ens = s["landing"], s["burst"], s["ensemble"]
     console.print(f"[bold]Landing[/bold]  {land['latitude']:.5f}, {land['longitude']:.5f}  at {land['time']}"
@@ -43,7 +43,7 @@ def _print_summary(console: Console, written: "WrittenForecast") -> None:  # noq
 
 
 def forecast_to_folder(plan_file: Path, out: Path, members: int | None, seed: int | None,
-                       report: bool, quiet: bool = False) -> "WrittenForecast":  # noqa: F821
+                       report: bool, quiet: bool = False) -> WrittenForecast:  # noqa: F821
     """Run the forecast with a progress bar and write the folder."""
     from balloonpath.forecast import run_forecast, write_outputs
 

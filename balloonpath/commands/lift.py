@@ -26,8 +26,8 @@ def register(app: typer.Typer) -> None:
     @app.command("lift")
     def lift(
         plan_file: Path | None = typer.Option(
-            None, "--plan", help="Flight plan whose [balloon], [payload], [parachute] and launch "
-            "elevation are used; the options below override its values."),
+            None, "--plan", help="Flight plan whose balloon, payload and parachute tables and "
+            "launch elevation are used; the options below override its values."),
         envelope_mass: float | None = typer.Option(
             None, "--envelope-mass", help="Envelope mass, kg."),
         payload_mass: float | None = typer.Option(

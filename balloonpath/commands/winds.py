@@ -12,7 +12,7 @@ winds_app = typer.Typer(
 )
 
 # Modules that add sub-commands to `winds_app` through their own register(winds_app).
-WINDS_COMMAND_MODULES: tuple[str, ...] = ()
+WINDS_COMMAND_MODULES: tuple[str, ...] = ("winds_derive",)
 
 
 def register(app: typer.Typer) -> None:

@@ -2,13 +2,10 @@
 
 Layout of ``flight.kml``: a Document with the folders *Flight* (the nominal track as a LineString
 with absolute altitudes and a TimeSpan, and the launch, burst and landing placemarks with
-descriptions),
-*Track times* (points along the track with TimeStamps, for a viewer's time slider; hidden by
-default),
-*Landing zones* (the ellipses and the non-parametric 90 % region as ground polygons), *Burst zones*
-and
-*Member landings*. Colours come from :data:`balloonpath.plots.PALETTE` (colour-blind safe); icons
-are the viewer's default, tinted, so the file needs no network.
+descriptions), *Track times* (points along the track with TimeStamps, for a viewer's time slider;
+hidden by default), *Landing zones* (the ellipses and the non-parametric 90 % region as ground
+polygons), *Burst zones* and *Member landings*. Colours come from :data:`balloonpath.plots.PALETTE`
+(colour-blind safe); icons are the viewer's default, tinted, so the file needs no network.
 
 References
 ----------

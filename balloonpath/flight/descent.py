@@ -2,7 +2,7 @@
 
 References
 ----------
-[NASA-TV] NASA Glenn Research Center, "Terminal Velocity": drag equals weight,
+[NASATerminal] NASA Glenn Research Center, "Terminal Velocity": drag equals weight,
     V = sqrt(2 W / (Cd rho A)).
 [Potvin] J. Potvin, Parks College Parachute Research Group, "Calculating the descent rate of a
     round parachute": the same balance; flat circular canopy Cd0 ~ 0.75 on the nominal area.
@@ -41,7 +41,8 @@ def terminal_velocity_m_s(
 
     Notes
     -----
-    m g = 1/2 rho v^2 Cd A, so v = sqrt(2 m g / (rho Cd A)) ([NASA-TV], [Potvin], [Knacke1991] §4).
+    m g = 1/2 rho v^2 Cd A, so v = sqrt(2 m g / (rho Cd A)) ([NASATerminal], [Potvin],
+    [Knacke1991] §4).
     A is the canopy's nominal area S0 = pi D0^2 / 4 (vents included) when Cd is the nominal Cd0.
     """
     return np.sqrt(

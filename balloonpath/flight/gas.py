@@ -130,7 +130,7 @@ def gas_density_kg_m3(
     -----
     rho = p M / (R* T) with M from :func:`mixture_molar_mass_kg_mol`. At 0 °C and 101 325 Pa this
     gives 0.17858 kg m-3 for helium and 0.08994 kg m-3 for hydrogen; handbook values are 0.1786 and
-    0.0899 (CRC Handbook; REFERENCES.md §2).
+    0.0899 ([CRC]; REFERENCES.md §2).
     """
     return ideal_gas_density_kg_m3(
         mixture_molar_mass_kg_mol(gas, purity), temperature_k, pressure_pa

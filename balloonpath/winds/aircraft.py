@@ -238,6 +238,7 @@ class ReadCounts:
     ambiguous_bds: int = 0
     missing_values: int = 0
     unpaired: int = 0
+    short_skipped: int = 0
     unknown_columns: set[str] = field(default_factory=set)
 
 
@@ -254,7 +255,7 @@ class QCConfig:
     max_pair_age_s: float = 2.0
     outlier_z: float = 5.0
     outlier_scale_floor_m_s: float = 1.0
-    reference_bin_m: float = 500.0
+    reference_knot_m: float = 1000.0
     heading_bias: bool = True
     heading_bias_min_rows: int = 5
     heading_bias_min_deg: float = 1.0
@@ -275,6 +276,7 @@ class QCReport:
     ambiguous_bds: int = 0
     missing_values: int = 0
     unpaired: int = 0
+    short_skipped: int = 0
     unknown_columns: tuple[str, ...] = ()
     rows: int = 0
     stale_pair: int = 0
@@ -301,7 +303,8 @@ class QCReport:
         out = [
             f"read        {self.lines_read} lines: {self.malformed_lines} malformed, {self.crc_failed} bad CRC, "
             f"{self.unverified_address} unverified address, {self.ambiguous_bds} ambiguous BDS, "
-            f"{self.missing_values} missing/NaN values, {self.unpaired} unpaired",
+            f"{self.missing_values} missing/NaN values, {self.unpaired} unpaired, "
+            f"{self.short_skipped} short (DF 0/4/5/11) skipped",
         ]
         if self.unknown_columns:
             out.append(f"ignored     unknown columns: {', '.join(self.unknown_columns)}")
@@ -484,63 +487,109 @@ def track_rate_from_sequence(states: AircraftStates, max_gap_s: float = 60.0) ->
     return rate
 
 
-def _reference_winds(states: AircraftStates, u: np.ndarray, v: np.ndarray, ok: np.ndarray,
-                     background: WindField | None, bin_m: float) -> tuple[np.ndarray, np.ndarray]:
-    """Reference wind at each row: the background, or the median of accepted rows in its altitude bin."""
-    if background is not None:
-        try:
-            ub, vb = background.wind(states.lat, states.lon, states.alt_m, states.time_s)
-            return np.asarray(ub, dtype=float), np.asarray(vb, dtype=float)
-        except CoverageError as exc:
-            warnings.warn(f"aircraft winds: background does not cover the reports ({exc}); outliers are "
-                          "judged against the median of the aircraft winds instead", DataQualityWarning,
-                          stacklevel=3)
-    bins = np.floor(states.alt_m / bin_m)
-    ub = np.full(len(states), np.nan)
-    vb = np.full(len(states), np.nan)
-    for b in np.unique(bins[ok]):
-        sel = ok & (bins == b)
-        member = bins == b
-        ub[member] = np.median(u[sel])
-        vb[member] = np.median(v[sel])
-    # Rows in bins without accepted rows: nearest bin's value.
-    missing = ~np.isfinite(ub)
-    if np.any(missing) and np.any(~missing):
-        order = np.argsort(states.alt_m[~missing])
-        ub[missing] = np.interp(states.alt_m[missing], states.alt_m[~missing][order], ub[~missing][order])
-        vb[missing] = np.interp(states.alt_m[missing], states.alt_m[~missing][order], vb[~missing][order])
-    return ub, vb
+def _hat_basis(z: np.ndarray, knots: np.ndarray) -> np.ndarray:
+    """Linear B-spline (hat function) basis on ``knots``, shape (len(z), len(knots)); constant outside."""
+    zc = np.clip(z, knots[0], knots[-1])
+    basis = np.zeros((z.size, knots.size))
+    if knots.size == 1:
+        basis[:, 0] = 1.0
+        return basis
+    j = np.clip(np.searchsorted(knots, zc, side="right") - 1, 0, knots.size - 2)
+    w = (zc - knots[j]) / (knots[j + 1] - knots[j])
+    rows = np.arange(z.size)
+    basis[rows, j] = 1.0 - w
+    basis[rows, j + 1] = w
+    return basis
 
 
-def estimate_heading_bias(
-    aircraft: np.ndarray, heading_true_deg: np.ndarray, true_airspeed_m_s: np.ndarray,
-    residual_u: np.ndarray, residual_v: np.ndarray, min_rows: int = 5,
-) -> dict[str, tuple[float, float, int]]:
-    """Per-aircraft heading bias (degrees) from wind residuals against a reference.
+def fit_reference(
+    states: AircraftStates, u: np.ndarray, v: np.ndarray, use: np.ndarray,
+    background: WindField | None = None, knot_m: float = 1000.0, with_bias: bool = True,
+    bias_prior_deg: float = 5.0, iterations: int = 6,
+) -> tuple[np.ndarray, np.ndarray, dict[str, tuple[float, float, int]]]:
+    """Reference wind at every row and per-aircraft heading biases, fitted jointly to the rows in ``use``.
 
-    Returns ``{aircraft: (bias_deg, standard_error_deg, n_rows)}`` for aircraft with at least ``min_rows``.
+    Returns ``(ref_u, ref_v, {aircraft: (bias_deg, standard_error_deg, n_rows)})``.
 
     Notes
     -----
-    A reported heading psi + delta rotates the air vector; to first order the derived wind changes by
-    -TAS delta n with n = (cos psi, -sin psi) the unit vector to the right of the heading. Each row gives
-    delta_i = -(r . n) / TAS (r the residual); the aircraft's bias is the median of delta_i, its standard
-    error 1.4826 MAD / sqrt(n). Motivation: out-of-date magnetic variation tables and flux-valve errors
+    Model (per component c = u, v; on the residual against the background when one is given):
+    c_i = sum_k a_ck B_k(z_i) + g_cx x_i + g_cy y_i + g_ct t_i + e_ci, with B_k linear B-splines in altitude
+    (knots every ``knot_m``), x, y local east/north offsets and t time about their means. A reported heading
+    psi + delta_a rotates the air vector and changes the derived wind by -TAS delta_a (cos psi, -sin psi) to
+    first order, so derived rows of aircraft a add -TAS cos(psi) delta_a to the u equation and
+    +TAS sin(psi) delta_a to the v equation. Aircraft fly different headings, so profile and biases are
+    jointly identifiable; a weak ridge prior (``bias_prior_deg``) keeps a lone aircraft's bias from absorbing
+    the profile. Solved by iteratively reweighted least squares with Huber weights (k = 1.5 robust scales,
+    ``iterations`` passes; scale 1.4826 MAD of the residuals, at least 0.3 m/s). Standard errors come from
+    the weighted normal matrix. Aircraft magnetic tables are often out of date and flux valves drift
     ([deHaan2013], [Jacobs2014]).
     """
-    psi = np.radians(heading_true_deg)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        delta = -(residual_u * np.cos(psi) - residual_v * np.sin(psi)) / true_airspeed_m_s
-    out: dict[str, tuple[float, float, int]] = {}
-    keys = aircraft.astype(str)
-    for name in np.unique(keys):
-        d = delta[(keys == name) & np.isfinite(delta)]
-        if d.size < min_rows:
-            continue
-        med = float(np.median(d))
-        se = 1.4826 * float(np.median(np.abs(d - med))) / math.sqrt(d.size)
-        out[str(name)] = (math.degrees(med), math.degrees(se), int(d.size))
-    return out
+    n = len(states)
+    sel = np.nonzero(use & np.isfinite(u) & np.isfinite(v))[0]
+    bg_u = np.zeros(n)
+    bg_v = np.zeros(n)
+    if background is not None:
+        try:
+            bu, bv = background.wind(states.lat, states.lon, states.alt_m, states.time_s)
+            bg_u = np.broadcast_to(np.asarray(bu, dtype=float), (n,)).copy()
+            bg_v = np.broadcast_to(np.asarray(bv, dtype=float), (n,)).copy()
+        except CoverageError as exc:
+            warnings.warn(f"aircraft winds: background does not cover the reports ({exc}); QC uses a profile "
+                          "fitted to the aircraft winds alone", DataQualityWarning, stacklevel=3)
+    if sel.size == 0:
+        return bg_u, bg_v, {}
+    z = states.alt_m
+    knots = np.arange(np.floor(z[sel].min() / knot_m) * knot_m, z[sel].max() + knot_m, knot_m)
+    lat0, lon0 = float(np.mean(states.lat[sel])), float(np.mean(states.lon[sel]))
+    x = (((states.lon - lon0 + 180.0) % 360.0) - 180.0) * 111_320.0 * math.cos(math.radians(lat0))
+    y = (states.lat - lat0) * 110_540.0
+    t = states.time_s - float(np.mean(states.time_s[sel]))
+    scales = [max(float(np.std(a[sel])), 1.0) for a in (x, y, t)]
+    side = np.column_stack([x / scales[0], y / scales[1], t / scales[2]])
+    smooth = np.hstack([_hat_basis(z, knots), side])
+    p = smooth.shape[1]
+    names = np.unique(states.aircraft[sel].astype(str)) if with_bias else np.array([], dtype=str)
+    derived_sel = states.kind[sel] == KIND_DERIVED
+    a_index = {str(name): j for j, name in enumerate(names)}
+    m = sel.size
+    design = np.zeros((2 * m, 2 * p + names.size))
+    design[:m, :p] = smooth[sel]
+    design[m:, p:2 * p] = smooth[sel]
+    if names.size:
+        psi = np.radians(states.heading_true_deg[sel])
+        tas = states.true_airspeed_m_s[sel]
+        cols = 2 * p + np.array([a_index[str(a)] for a in states.aircraft[sel]])
+        rows = np.arange(m)[derived_sel]
+        design[rows, cols[derived_sel]] = -tas[derived_sel] * np.cos(psi[derived_sel])
+        design[m + rows, cols[derived_sel]] = tas[derived_sel] * np.sin(psi[derived_sel])
+    data = np.concatenate([u[sel] - bg_u[sel], v[sel] - bg_v[sel]])
+    weights = np.ones(2 * m)
+    scale = 1.0
+    # Normal equations of the weighted, ridge-augmented system (few columns: solve is fast and exact).
+    reg = np.zeros(design.shape[1])
+    reg[2 * p:] = 1.0
+
+    def normal(w: np.ndarray, s: float) -> np.ndarray:
+        prior_w = (s / math.radians(bias_prior_deg)) ** 2
+        return (design.T * w) @ design + np.diag(prior_w * reg + 1e-9)
+
+    coef = np.zeros(design.shape[1])
+    for _ in range(iterations):
+        coef = np.linalg.solve(normal(weights, scale), design.T @ (weights * data))
+        resid = data - design @ coef
+        scale = max(1.4826 * float(np.median(np.abs(resid - np.median(resid)))), 0.3)
+        r = np.abs(resid) / (1.5 * scale)
+        weights = np.where(r <= 1.0, 1.0, 1.0 / np.maximum(r, 1e-12))
+    biases: dict[str, tuple[float, float, int]] = {}
+    if names.size:
+        cov = np.linalg.inv(normal(weights, scale)) * scale**2
+        ac_sel = states.aircraft[sel].astype(str)
+        for name, j in a_index.items():
+            k = 2 * p + j
+            count = int(np.sum((ac_sel == name) & derived_sel))
+            biases[name] = (math.degrees(coef[k]), math.degrees(math.sqrt(max(cov[k, k], 0.0))), count)
+    return bg_u + smooth @ coef[:p], bg_v + smooth @ coef[p:2 * p], biases
 
 
 def quality_control(
@@ -587,28 +636,21 @@ def quality_control(
     biases: dict[str, float] = {}
     bias_rows = 0
     if cfg.heading_bias and np.any(ok & derived):
+        _, _, found = fit_reference(states, u, v, ok, background, cfg.reference_knot_m, with_bias=True)
         heading = states.heading_true_deg.copy()
-        for _ in range(2):  # second pass: reference from corrected winds
-            ub, vb = _reference_winds(states, u, v, ok, background, cfg.reference_bin_m)
-            sel = ok & derived
-            found = estimate_heading_bias(states.aircraft[sel], heading[sel], states.true_airspeed_m_s[sel],
-                                          u[sel] - ub[sel], v[sel] - vb[sel], cfg.heading_bias_min_rows)
-            changed = False
-            for name, (bias, se, _count) in found.items():
-                if abs(bias) > max(cfg.heading_bias_min_deg, cfg.heading_bias_sigmas * se):
-                    rows = derived & (states.aircraft.astype(str) == name)
-                    heading[rows] = (heading[rows] - bias) % 360.0
-                    biases[name] = biases.get(name, 0.0) + bias
-                    changed = True
-            if not changed:
-                break
-            states = AircraftStates(**{**{f.name: getattr(states, f.name) for f in fields(states)},
-                                       "heading_true_deg": heading.copy()})
-            u, v = states.winds()
+        for name, (bias, se, count) in found.items():
+            if count >= cfg.heading_bias_min_rows and \
+                    abs(bias) > max(cfg.heading_bias_min_deg, cfg.heading_bias_sigmas * se):
+                rows = derived & (states.aircraft.astype(str) == name)
+                heading[rows] = (heading[rows] - bias) % 360.0
+                biases[name] = bias
+                bias_rows += int(rows.sum())
         if biases:
-            bias_rows = int(np.sum(derived & np.isin(states.aircraft.astype(str), list(biases))))
+            states = AircraftStates(**{**{f.name: getattr(states, f.name) for f in fields(states)},
+                                       "heading_true_deg": heading})
+            u, v = states.winds()
 
-    ub, vb = _reference_winds(states, u, v, ok, background, cfg.reference_bin_m)
+    ub, vb, _ = fit_reference(states, u, v, ok, background, cfg.reference_knot_m, with_bias=False)
     outlier = np.zeros(n, dtype=bool)
     if np.any(ok):
         for r in (u - ub, v - vb):
@@ -766,7 +808,7 @@ def derive_observations(
     report = QCReport(
         lines_read=counts.lines, malformed_lines=counts.malformed, crc_failed=counts.crc_failed,
         unverified_address=counts.unverified_address, ambiguous_bds=counts.ambiguous_bds,
-        missing_values=counts.missing_values, unpaired=counts.unpaired,
+        missing_values=counts.missing_values, unpaired=counts.unpaired, short_skipped=counts.short_skipped,
         unknown_columns=tuple(sorted(counts.unknown_columns)), rows=len(states),
         stale_pair=qc["stale_pair"], implausible_speed=qc["implausible_speed"], turning=qc["turning"],
         wind_too_strong=qc["wind_too_strong"], outlier=qc["outlier"], accepted=int(ok.sum()),
@@ -779,7 +821,7 @@ def derive_observations(
 
 __all__ = [
     "AircraftStates", "QCConfig", "QCReport", "ReadCounts", "altitude_from_pressure_altitude",
-    "derive_observations", "estimate_heading_bias", "heading_and_ground_speed", "observation_sigma_m_s",
+    "derive_observations", "fit_reference", "heading_and_ground_speed", "observation_sigma_m_s",
     "quality_control", "read_report_table", "superobservations", "uv_from_direction_speed",
     "wind_from_triangle",
 ]

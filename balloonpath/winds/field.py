@@ -125,7 +125,9 @@ def check_coverage(
                 message + "; fix: use winds that cover the whole flight, or set "
                 "[winds] outside = \"hold\" to hold the edge values"
             )
-        warnings.warn(message + " (edge value held)", CoverageWarning, stacklevel=3)
+        # The warning text is stable (no per-call values) so that a run records it once.
+        warnings.warn(f"{source}: {name} went outside the field's coverage {span}; edge values held",
+                      CoverageWarning, stacklevel=3)
         out[i] = np.clip(arr, low if low is not None else -np.inf, high if high is not None else np.inf)
     return out[0], out[1], out[2], out[3]
 

@@ -348,22 +348,25 @@ class GPWindField:
         out.corridor = c
         return out
 
-    def sample_grid(self, n_members: int) -> CorridorGrid:
+    def sample_grid(self, n_members: int, memory_budget_bytes: int = MEMORY_BUDGET_BYTES) -> CorridorGrid:
         """The corridor grid used for ``n_members`` members (node budget from the memory budget)."""
         lo, hi = self.corridor.box()
-        budget = int(min(MAX_NODES, MEMORY_BUDGET_BYTES // (8 * max(int(n_members), 1))))
+        budget = int(min(MAX_NODES, memory_budget_bytes // (8 * max(int(n_members), 1))))
         return choose_grid(lo, hi, self.hyperparameters.lengths(), max(budget, 16))
 
-    def sample(self, n_members: int, rng: np.random.Generator) -> GridMemberWinds:
+    def sample(
+        self, n_members: int, rng: np.random.Generator, memory_budget_bytes: int = MEMORY_BUDGET_BYTES
+    ) -> GridMemberWinds:
         """Draw ``n_members`` correlated posterior realisations (see ``gp_sample.py``).
 
         Deterministic function of the generator state and ``n_members``. Member deviations are drawn in
-        batches of ``BATCH_MEMBERS`` (u fields then v fields of each batch).
+        batches of ``BATCH_MEMBERS`` (u fields then v fields of each batch). The grid nodes are capped so
+        that the float32 deviations of all members fit ``memory_budget_bytes`` (default 128 MiB).
         """
         n_members = int(n_members)
         if n_members < 1:
             raise input_error(None, "members", f"must be >= 1, got {n_members}", "ask for at least one member")
-        grid = self.sample_grid(n_members)
+        grid = self.sample_grid(n_members, memory_budget_bytes)
         hp = self.hyperparameters
         sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior)
         dev = np.empty((n_members, grid.size, 2), dtype=np.float32)
@@ -679,17 +682,39 @@ def background_spec_of(background: WindField) -> dict:
     return {"kind": type(background).__name__}
 
 
+def load_background(source: str | Path, outside: str = "error") -> tuple[WindField, dict]:
+    """A background from a source string, and its description for saved fields.
+
+    ``uniform:U,V`` (m/s), a gridded forecast (``.nc``, ``.grib2``, ``.grb2``, ``.grb``: ``GridField.open``)
+    or sounding CSV files / a folder of them (``sounding_field_from_paths``).
+    """
+    text = str(source)
+    if text.startswith("uniform:"):
+        try:
+            u, v = (float(a) for a in text.split(":", 1)[1].split(","))
+        except ValueError:
+            raise input_error(None, "background", f"'{text}' is not uniform:U,V",
+                              "write e.g. uniform:10,-2 (m/s east, north)") from None
+        return UniformField(u, v), {"kind": "uniform", "u_m_s": u, "v_m_s": v}
+    path = Path(text).resolve()
+    if not path.exists():
+        raise FileNotFoundError(2, "No such file", str(path))
+    spec = {"kind": "file", "path": str(path), "outside": outside}
+    if path.suffix.lower() in (".nc", ".nc4", ".grib2", ".grb2", ".grb", ".grib"):
+        from balloonpath.winds.grid import GridField
+
+        return GridField.open(path, outside=outside), spec
+    from balloonpath.winds.sounding import sounding_field_from_paths
+
+    return sounding_field_from_paths(path, outside=outside), spec
+
+
 def default_background_loader(spec: dict) -> WindField:
-    """Rebuild a background from its description: ``uniform`` here; files through ``winds.sources``."""
+    """Rebuild a background from its stored description (see :func:`load_background`)."""
     if spec.get("kind") == "uniform":
         return UniformField(spec["u_m_s"], spec["v_m_s"])
     if spec.get("kind") == "file":
-        try:
-            from balloonpath.winds import sources  # written by the wind-sources engineer
-        except ImportError:
-            sources = None
-        if sources is not None and hasattr(sources, "load_background"):
-            return sources.load_background(spec["path"])
+        return load_background(spec["path"], spec.get("outside", "error"))[0]
     raise input_error(
         None, "background", f"cannot rebuild the background {spec} of this fitted field",
         "pass background_loader= to load_wind_field, or name the background in the plan's [winds] table",

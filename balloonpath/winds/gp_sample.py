@@ -42,7 +42,7 @@ if TYPE_CHECKING:
     from balloonpath.winds.gp import Posterior
 
 #: Memory budget for all members' deviation grids (bytes) and the cap on grid nodes per field.
-MEMORY_BUDGET_BYTES = 256 * 2**20
+MEMORY_BUDGET_BYTES = 128 * 2**20
 MAX_NODES = 60_000
 #: Target grid spacing as a fraction of each length scale.
 SPACING_FRACTION = 1.0 / 3.0
@@ -230,12 +230,12 @@ def _kron_apply(mats: list[np.ndarray], arr: np.ndarray) -> np.ndarray:
 
     Parameters
     ----------
-    mats : four square matrices, sizes n0..n3.
+    mats : four matrices, shapes (m_d, n_d).
     arr : ndarray, shape (G, B), G = n0 n1 n2 n3 in C order.
 
     Returns
     -------
-    ndarray, shape (B, G).
+    ndarray, shape (B, m0 m1 m2 m3).
 
     Notes
     -----
@@ -245,7 +245,7 @@ def _kron_apply(mats: list[np.ndarray], arr: np.ndarray) -> np.ndarray:
     """
     out = np.ascontiguousarray(arr)
     for m in mats:
-        out = out.reshape(m.shape[0], -1).T @ m.T
+        out = out.reshape(m.shape[1], -1).T @ m.T
     return out.reshape(arr.shape[1], -1)
 
 
@@ -254,9 +254,12 @@ def _corr_1d(axis: np.ndarray, length: float) -> np.ndarray:
     return np.exp(-0.5 * d * d)
 
 
-def _sqrt_psd(k: np.ndarray) -> np.ndarray:
+def _sqrt_psd(k: np.ndarray, rtol: float = 1e-7) -> np.ndarray:
+    """Low-rank square root R (n, r) with R R^T ~ k: eigenvalues below rtol x the largest are dropped
+    (their share of the variance is below n rtol)."""
     lam, q = np.linalg.eigh(k)
-    return q * np.sqrt(np.clip(lam, 0.0, None))[None, :]
+    keep = lam > rtol * lam[-1]
+    return np.ascontiguousarray(q[:, keep] * np.sqrt(lam[keep])[None, :])
 
 
 class GridSampler:
@@ -272,6 +275,8 @@ class GridSampler:
         corr = [_corr_1d(grid.axis(d), self.lengths[d]) for d in range(4)]
         self.corr = corr
         self.roots = [_sqrt_psd(k) for k in corr]
+        self.roots_t = [np.ascontiguousarray(r.T) for r in self.roots]
+        self.rank_size = int(np.prod([r.shape[1] for r in self.roots]))
         self.s_chol = None
         if posterior is not None and posterior.n_points > 0:
             pts = posterior.points
@@ -297,10 +302,11 @@ class GridSampler:
 
         Notes
         -----
-        Prior: g = s (A_0 (x) ... (x) A_3) xi. Matheron update ([Wilson2020]):
-        e = g + s^2 (K_0 (x) ... (x) K_3) W^T c with c from ``posterior.sample_coefficients(W g)``.
+        Prior: g = s (R_0 (x) ... (x) R_3) xi with R_d (n_d x r_d) the low-rank square root of K_d.
+        Matheron update ([Wilson2020]): e = g + s^2 (K_0 (x) ... (x) K_3) W^T c with
+        c = -(K~ + Lambda)^-1 (W g + eps) (exact GP) or ``posterior.sample_coefficients`` (DTC).
         """
-        xi = rng.standard_normal((self.grid.size, n_fields))
+        xi = rng.standard_normal((self.rank_size, n_fields))
         g = self.sigma * _kron_apply(self.roots, xi)  # (n_fields, G)
         if self.w_obs is not None:
             f_at_points = self.w_obs @ g.T  # (n, n_fields)
@@ -309,7 +315,9 @@ class GridSampler:
                 coef = -cho_solve((self.s_chol, True), f_at_points + eps, check_finite=False)
             else:
                 coef = self.posterior.sample_coefficients(f_at_points, rng)  # (n, n_fields)
-            g += self.sigma**2 * _kron_apply(self.corr, self.w_obs_t @ coef)
+            # K_gg W^T coef with K_d = R_d R_d^T: compress by R^T, then expand by R
+            low = _kron_apply(self.roots_t, self.w_obs_t @ coef)  # (n_fields, r)
+            g += self.sigma**2 * _kron_apply(self.roots, np.ascontiguousarray(low.T))
         return g
 
 

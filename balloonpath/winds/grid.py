@@ -1,36 +1,29 @@
 """Gridded forecast files (NetCDF, GRIB2) as a :class:`~balloonpath.winds.field.WindField`.
 
 A forecast file holds u and v on pressure levels with the geopotential (or geopotential height) of
-each level,
-on a latitude-longitude grid, at one or more times. :meth:`GridField.open` reads only the
-corridor's subset
-(a bounding box and a time range) into memory once; evaluation is then pure numpy.
+each level, on a latitude-longitude grid, at one or more times. :meth:`GridField.open` reads only
+the corridor's subset (a bounding box and a time range) into memory once; evaluation is then pure
+numpy.
 
 Interpolation (``docs/winds.md``, "Gridded files"):
 
 1. Each grid column's geopotential height H is converted to geometric altitude Z = r0 H / (r0 - H)
    ([NOAA1976] eq. 18). Geopotential in m2 s-2 is first divided by g0 = 9.80665 m s-2 (the WMO
-   definition
-   of geopotential height).
+   definition of geopotential height).
 2. Each column's u and v are interpolated linearly in Z onto one common set of equally spaced
-altitudes
-   (``dz_m``, 100 m by default); below the column's lowest level its lowest wind is held, above its
-   top its
-   top wind.
-3. A query point is then interpolated multilinearly in (time, altitude, latitude, longitude) on
-that regular
-   4-D cube. This equals "linear in altitude in each of the 16 surrounding columns, then bilinear
-   and
-   linear in time" except within one ``dz_m`` cell around each column's pressure-level heights,
-   where the
-   piecewise-linear profile's corner is cut: the error there is at most dz_m / 4 times the jump in
-   vertical
-   shear (0.25 m/s for a shear change of 0.01 s-1 with dz_m = 100 m) and zero elsewhere.
+   altitudes (``dz_m``, 100 m by default); below the column's lowest level its lowest wind is held,
+   above its top its top wind.
+3. A query point is then interpolated multilinearly in (time, altitude, latitude, longitude) on that
+   regular 4-D cube. This equals "linear in altitude in each of the 16 surrounding columns, then
+   bilinear and linear in time" except within one ``dz_m`` cell around each column's pressure-level
+   heights, where the piecewise-linear profile's corner is cut: the error there is at most dz_m / 4
+   times the jump in vertical shear (0.25 m/s for a shear change of 0.01 s-1 with dz_m = 100 m) and
+   zero elsewhere.
 
 References
 ----------
-[NOAA1976] U.S. Standard Atmosphere, 1976, eq. 18: geopotential H = r0 Z / (r0 + Z), r0 = 6 356 766
-m.
+[NOAA1976] U.S. Standard Atmosphere, 1976, eq. 18: geopotential H = r0 Z / (r0 + Z),
+    r0 = 6 356 766 m.
 [CF] NetCDF Climate and Forecast Metadata Conventions (standard names eastward_wind, northward_wind,
     geopotential_height, geopotential, air_pressure, latitude, longitude, time).
 [WMO306] WMO-No. 306, Manual on Codes, FM 92 GRIB edition 2 (read through ecCodes and cfgrib).
@@ -169,12 +162,10 @@ class GridField:
             Strictly monotonic latitudes (descending is reversed here).
         lons : numpy.ndarray, shape (nx,)
             Strictly increasing unwrapped longitudes; a global grid (nx spacing covering 360 deg)
-            gets its
-            first column repeated at +360 so that interpolation crosses the seam.
+            gets its first column repeated at +360 so that interpolation crosses the seam.
         alt_m, u, v : numpy.ndarray, shape (nt, nl, ny, nx)
             Geometric altitude of each level and the wind there; levels in any order but each
-            column's
-            altitudes strictly monotonic in the same direction.
+            column's altitudes strictly monotonic in the same direction.
         dz_m : float
             Spacing of the common altitude grid (coarsened if the cube would exceed
             ``MAX_CUBE_CELLS``).
@@ -182,8 +173,8 @@ class GridField:
         Notes
         -----
         Coverage in altitude: from ``HOLD_BELOW_M`` below the highest lowest-level altitude of all
-        columns
-        up to the lowest top-level altitude of all columns (so that every column has data there).
+        columns up to the lowest top-level altitude of all columns (so that every column has data
+        there).
         """
         times = np.asarray(times_s, dtype=float)
         lat = np.asarray(lats, dtype=float)
@@ -262,8 +253,7 @@ class GridField:
             balloonpath[grib]``), recognised by the file's first bytes.
         bbox : (lat_min, lat_max, lon_min, lon_max), optional
             The region to load, degrees; ``lon_min > lon_max`` means the box crosses the
-            antimeridian.
-            One grid cell of margin is added on every side. None loads the whole grid.
+            antimeridian. One grid cell of margin is added on every side. None loads the whole grid.
         time_range : (t_min, t_max), optional
             POSIX seconds; the times bracketing the range are loaded too. None loads every time.
         outside : {"error", "hold"}
@@ -275,8 +265,7 @@ class GridField:
         ------
         InputDataError
             For missing variables or coordinates, wrong units, NaN values in the region, a single
-            level,
-            or an unknown file format.
+            level, or an unknown file format.
         """
         path = Path(path)
         if not path.exists():

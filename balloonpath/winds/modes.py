@@ -38,7 +38,7 @@ from pathlib import Path
 
 import numpy as np
 
-from balloonpath.atmosphere import Atmosphere, pressure_pa, temperature_k
+from balloonpath.atmosphere import Atmosphere, pressure_pa
 from balloonpath.timeutil import parse_iso
 from balloonpath.units import m_from_ft, m_s_from_kt
 from balloonpath.winds.aircraft import (
@@ -71,6 +71,24 @@ def calibrated_airspeed_kt_from_mach(mach: np.ndarray | float, pressure_altitude
     p = pressure_pa(np.clip(m_from_ft(np.asarray(pressure_altitude_ft, dtype=float)), -5000, 86000))
     qc = p * ((1.0 + 0.2 * m * m) ** 3.5 - 1.0)
     return _SPEED_OF_SOUND_SEA_LEVEL_KT * np.sqrt(5.0 * ((qc / _P0 + 1.0) ** (2.0 / 7.0) - 1.0))
+
+
+def _isa_scalar(pressure_altitude_ft: float) -> tuple[float, float]:
+    """Standard temperature (K) and pressure (Pa) at a pressure altitude below 20 km (scalar, fast).
+
+    [NOAA1976] layers 0-11 km (lapse -6.5 K/km) and 11-20 km (isothermal 216.65 K), geopotential height.
+    """
+    h = pressure_altitude_ft * 0.3048
+    if h <= 11_000.0:
+        t = 288.15 - 0.0065 * h
+        return t, 101_325.0 * (t / 288.15) ** 5.255877
+    return 216.65, 22_632.06 * math.exp(-(min(h, 20_000.0) - 11_000.0) / 6_341.62)
+
+
+def _cas_kt_scalar(mach: float, pressure_altitude_ft: float) -> float:
+    p = _isa_scalar(pressure_altitude_ft)[1]
+    qc = p * ((1.0 + 0.2 * mach * mach) ** 3.5 - 1.0)
+    return _SPEED_OF_SOUND_SEA_LEVEL_KT * math.sqrt(5.0 * ((qc / _P0 + 1.0) ** (2.0 / 7.0) - 1.0))
 
 
 def _angle_diff(a: float, b: float) -> float:
@@ -108,14 +126,14 @@ def _consistent(code: str, fields: dict, ac: _Aircraft, t: float, altitude_ft: f
         if gv is not None and _angle_diff(fields["magnetic_heading"], gv[2]) > 45:
             return False
         if altitude_ft is not None:
-            cas = float(calibrated_airspeed_kt_from_mach(fields["mach"], altitude_ft))
+            cas = _cas_kt_scalar(fields["mach"], altitude_ft)
             return abs(cas - fields["indicated_airspeed"]) <= 30
         return True
     if code == "4,4":
         if "wind_speed" not in fields or "wind_direction" not in fields or fields["wind_speed"] > 250:
             return False
         if altitude_ft is not None:
-            t_std = float(temperature_k(np.clip(m_from_ft(altitude_ft), -5000, 86000))) - 273.15
+            t_std = _isa_scalar(altitude_ft)[0] - 273.15
             return abs(fields["static_air_temperature"] - t_std) <= 35
         return True
     return False
@@ -142,8 +160,11 @@ def iter_message_lines(path: str | Path, counts: ReadCounts) -> Iterator[tuple[f
                 counts.malformed += 1
                 continue
             stamp, message = parts[0].strip(), parts[1].strip()
-            if len(message) not in (14, 28):
-                counts.malformed += 1
+            if len(message) != 28:
+                if len(message) == 14:
+                    counts.short_skipped += 1  # DF 0/4/5/11: nothing for the wind triangle
+                else:
+                    counts.malformed += 1
                 continue
             try:
                 t = float(stamp)
@@ -250,6 +271,9 @@ def read_raw_messages(
             continue
         if not result.get("icao_verified"):
             counts.unverified_address += 1
+            continue
+        if result.get("altitude_mismatch") or result.get("velocity_mismatch"):
+            counts.ambiguous_bds += 1  # pyModeS found the content inconsistent with the aircraft's ADS-B
             continue
         candidates = result.get("bds_candidates") or ([result["bds"]] if result.get("bds") else [])
         wanted = [c for c in candidates if c in ("4,4", "5,0", "6,0")]

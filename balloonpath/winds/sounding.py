@@ -1,22 +1,17 @@
-"""Sounding tables: one or several vertical wind profiles as a
-:class:`~balloonpath.winds.field.WindField`.
+"""Sounding tables: one or several vertical wind profiles as a ``WindField``.
 
 File format (our own, documented in ``docs/winds.md``): a CSV table with a header row; lines
-starting with ``#``
-are comments, and comment lines of the form ``# key = value`` before the header carry the
-sounding's site and
-time (``site_latitude``, ``site_longitude``, ``time`` in ISO 8601 UTC, optionally
-``site_elevation_m``).
+starting with ``#`` are comments, and comment lines of the form ``# key = value`` before the header
+carry the sounding's site and time (``site_latitude``, ``site_longitude``, ``time`` in ISO 8601 UTC,
+optionally ``site_elevation_m``).
 
 Columns (order free, unknown columns ignored):
 
 - vertical: ``altitude_m`` (geometric, above mean sea level) or ``pressure_hpa`` (heights then from
-  the
-  hypsometric equation with the sounding's temperature, or from USSA 1976 when no temperature is
+  the hypsometric equation with the sounding's temperature, or from USSA 1976 when no temperature is
   given);
 - wind: ``wind_direction_deg`` (FROM, degrees true, [WMO2018]) with ``wind_speed_m_s`` or
-  ``wind_speed_kt``,
-  or ``u_m_s`` with ``v_m_s``;
+  ``wind_speed_kt``, or ``u_m_s`` with ``v_m_s``;
 - optional: ``temperature_c``, ``dewpoint_c`` (and ``pressure_hpa`` beside ``altitude_m``).
 
 An empty cell, ``nan`` or ``na`` is a missing value; rows without wind or height are skipped with a
@@ -25,15 +20,13 @@ warning.
 References
 ----------
 [WMO2018] WMO-No. 8, Guide to Instruments and Methods of Observation: wind direction is the
-direction FROM
-    which the wind blows, degrees clockwise from true north.
-[WH2006] J. M. Wallace & P. V. Hobbs, Atmospheric Science: An Introductory Survey, 2nd ed.,
-Academic Press
-    2006, §3.2: hypsometric equation Z2 - Z1 = (Rd / g0) Tv_mean ln(p1 / p2) (eq. 3.29) and virtual
-    temperature Tv = T / (1 - (e / p)(1 - eps)), eps = 0.622 (eq. 3.16) (from memory).
+    direction FROM which the wind blows, degrees clockwise from true north.
+[WH2006] J. M. Wallace & P. V. Hobbs, Atmospheric Science: An Introductory Survey, 2nd ed., Academic
+    Press 2006, §3.2: hypsometric equation Z2 - Z1 = (Rd / g0) Tv_mean ln(p1 / p2) (eq. 3.29) and
+    virtual temperature Tv = T / (1 - (e / p)(1 - eps)), eps = 0.622 (eq. 3.16) (from memory).
 [Bolton1980] D. Bolton, "The computation of equivalent potential temperature", Mon. Wea. Rev.
-108:1046-1053
-    (1980), eq. 10: e(Td) = 6.112 exp(17.67 Td / (Td + 243.5)) hPa, Td in deg C (from memory).
+    108:1046-1053 (1980), eq. 10: e(Td) = 6.112 exp(17.67 Td / (Td + 243.5)) hPa, Td in deg C (from
+    memory).
 [DWD-CDC] Deutscher Wetterdienst, Climate Data Center: high-resolution radiosonde data (column names
     STATIONS_ID, BEZUGSDATUM_SYNOP, MESSZEITPUNKT, AE_GPM, AE_P, AE_TT, AE_TD, AE_FF, AE_DD, ...).
 """
@@ -130,8 +123,7 @@ class Sounding:
 
 
 def _wrap_lon(lon: np.ndarray | float) -> np.ndarray:
-    """Longitude in [-180, 180); values already inside are returned unchanged (no rounding
-    noise)."""
+    """Longitude in [-180, 180); values already inside are returned unchanged."""
     x = np.asarray(lon, dtype=float)
     inside = (x >= -180.0) & (x < 180.0)
     return np.where(inside, x, (x + 180.0) % 360.0 - 180.0)
@@ -144,8 +136,7 @@ def vapour_pressure_pa(dewpoint_k: np.ndarray | float) -> np.ndarray:
     Notes
     -----
     [Bolton1980] eq. 10: e = 6.112 exp(17.67 Td / (Td + 243.5)) hPa with Td in deg C (accurate to
-    0.1 %
-    between -35 and +35 deg C).
+    0.1 % between -35 and +35 deg C).
     """
     td_c = np.asarray(dewpoint_k, dtype=float) - 273.15
     return 611.2 * np.exp(17.67 * td_c / (td_c + 243.5))
@@ -189,12 +180,10 @@ def hypsometric_heights_m(
     Notes
     -----
     Between levels i and i+1, with the temperature taken linear in ln p, the geopotential thickness
-    is
-    exactly dH = (R / g0) (T_i + T_{i+1}) / 2 ln(p_i / p_{i+1}) ([WH2006] eq. 3.29, with R = R*/M0
-    of
+    is exactly dH = (R / g0) (T_i + T_{i+1}) / 2 ln(p_i / p_{i+1}) ([WH2006] eq. 3.29, with R =
+    R*/M0 of
     [NOAA1976] and g0 = 9.80665 m s-2, so that H is in geopotential metres); geopotential is
-    converted
-    to geometric altitude with Z = r0 H / (r0 - H) ([NOAA1976] eq. 18).
+    converted to geometric altitude with Z = r0 H / (r0 - H) ([NOAA1976] eq. 18).
     """
     p = np.asarray(pressure_pa, dtype=float)
     t = np.asarray(temperature_k, dtype=float)
@@ -305,8 +294,7 @@ def read_sounding(
     ------
     InputDataError
         Naming the file, the line and the column, for unreadable cells, missing columns, values out
-        of range
-        and soundings with fewer than two usable levels.
+        of range and soundings with fewer than two usable levels.
     """
     path = Path(path)
     try:
@@ -474,8 +462,7 @@ def _heights_from_pressure(
     dewpoint_k: np.ndarray | None,
     site_elevation_m: float | None,
 ) -> np.ndarray:
-    """Geometric altitudes of a pressure-only sounding (hypsometric with its temperature, else USSA
-    1976)."""
+    """Geometric altitudes of a pressure-only sounding (hypsometric, else USSA 1976)."""
     if pressure_pa.size == 0:
         return pressure_pa.copy()
     order = np.argsort(-pressure_pa, kind="stable")
@@ -533,8 +520,7 @@ _DWD_COLUMNS = (
 
 
 def read_dwd_highres(path: str | Path) -> tuple[Sounding, FlownTrack]:
-    """Read a DWD high-resolution radiosonde file ([DWD-CDC]) as a sounding and the sonde's flown
-    track.
+    """Read a DWD high-resolution radiosonde file ([DWD-CDC]): sounding and flown track.
 
     Parameters
     ----------
@@ -546,20 +532,15 @@ def read_dwd_highres(path: str | Path) -> tuple[Sounding, FlownTrack]:
     -------
     (Sounding, FlownTrack)
         The sounding: winds from ``AE_FF`` (m/s) and ``AE_DD`` (FROM, degrees), geometric altitude
-        from the
-        geopotential height ``AE_GPM`` by Z = r0 H / (r0 - H) ([NOAA1976] eq. 18), temperature, dew
-        point and
-        pressure; site = launch position (first row), time = nominal time ``BEZUGSDATUM_SYNOP``.
-        Levels are
-        the rows whose altitude exceeds every earlier row's (the sonde's strictly rising envelope),
-        so
-        brief pendulum or descent episodes do not make the profile multivalued.
+        from the geopotential height ``AE_GPM`` by Z = r0 H / (r0 - H) ([NOAA1976] eq. 18),
+        temperature, dew point and pressure; site = launch position (first row), time = nominal time
+        ``BEZUGSDATUM_SYNOP``. Levels are the rows whose altitude exceeds every earlier row's (the
+        sonde's strictly rising envelope), so brief pendulum or descent episodes do not make the
+        profile multivalued.
         The track: every row with a position and height, time = nominal time + ``MESSZEITPUNKT``
-        (seconds
-        since launch). The file holds no launch time, so track times are offset from the real clock
-        by the
-        difference between launch and nominal time (launches precede nominal time by up to about an
-        hour).
+        (seconds since launch). The file holds no launch time, so track times are offset from the
+        real clock by the difference between launch and nominal time (launches precede nominal time
+        by up to about an hour).
 
     Raises
     ------
@@ -675,24 +656,20 @@ class SoundingField:
     Scheme (``docs/winds.md``, "Several soundings"):
 
     - vertically, u and v of each sounding are interpolated linearly in geometric altitude (never
-      direction
-      and speed); below a sounding's lowest level its lowest wind is held, above its top its top
-      wind;
+      direction and speed); below a sounding's lowest level its lowest wind is held, above its top
+      its top wind;
     - one sounding: the wind is constant in time and horizontally;
     - soundings at one site (same latitude and longitude to 1e-4 deg) are interpolated linearly in
-      time
-      between the two nearest observation times; before the first and after the last the nearest is
-      held;
+      time between the two nearest observation times; before the first and after the last the
+      nearest is held;
     - several sites are combined by inverse-distance-squared weights (Shepard's method) on the local
       equirectangular distance; a point within 1 m of a site takes that site's wind.
 
     Coverage: altitude from ``HOLD_BELOW_M`` (500 m) below the lowest level of any sounding to the
-    highest
-    top; latitude, longitude and time are unbounded (the nearest data are held). Outside the
-    altitude range
-    ``outside`` decides: ``"error"`` raises :class:`~balloonpath.errors.CoverageError`, ``"hold"``
-    holds the
-    edge value with a :class:`~balloonpath.errors.CoverageWarning`.
+    highest top; latitude, longitude and time are unbounded (the nearest data are held). Outside the
+    altitude range ``outside`` decides: ``"error"`` raises
+    :class:`~balloonpath.errors.CoverageError`, ``"hold"`` holds the edge value with a
+    :class:`~balloonpath.errors.CoverageWarning`.
 
     Parameters
     ----------
@@ -883,8 +860,8 @@ def atmosphere_from_soundings(
     """The day's air from the sounding nearest the launch that has temperature and pressure.
 
     Nearest means: smallest distance to (``lat``, ``lon``) when both are given and the soundings
-    have sites,
-    then smallest time difference to ``time_s`` when given; otherwise the first such sounding.
+    have sites, then smallest time difference to ``time_s`` when given; otherwise the first such
+    sounding.
 
     Returns
     -------

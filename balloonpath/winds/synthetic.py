@@ -2,21 +2,16 @@
 
 Everything here is invented data for tests, demos and benchmarks: no real weather. A
 :class:`SyntheticAtmosphereField` is a smooth, deterministic function of (lat, lon, alt, time) with
-the
-structure a balloon meets: a boundary layer whose wind grows with height and turns (veers) toward
-the
-free-atmosphere wind, a mid-latitude jet stream near 10-12 km with a meandering axis, vertical
-shear,
-horizontal gradients over ~500 km, slow change over hours, weak stratospheric winds above about 20
-km, and
-seeded "weather" eddies. :meth:`SyntheticAtmosphereField.perturbed` returns a second smooth field
-that
-differs by extra eddies of a chosen amplitude: a background forecast with plausible error.
+the structure a balloon meets: a boundary layer whose wind grows with height and turns (veers)
+toward the free-atmosphere wind, a mid-latitude jet stream near 10-12 km with a meandering axis,
+vertical shear, horizontal gradients over ~500 km, slow change over hours, weak stratospheric winds
+above about 20 km, and seeded "weather" eddies. :meth:`SyntheticAtmosphereField.perturbed` returns a
+second smooth field that differs by extra eddies of a chosen amplitude: a background forecast with
+plausible error.
 
 Air temperature and pressure are those of US Standard Atmosphere 1976 ([NOAA1976]); pressure-level
-heights
-vary horizontally by about +-1 % (+-100 m at 10 km), lower on the poleward side of the jet as in a
-westerly flow, which is qualitative only (not balanced geostrophically).
+heights vary horizontally by about +-1 % (+-100 m at 10 km), lower on the poleward side of the jet
+as in a westerly flow, which is qualitative only (not balanced geostrophically).
 
 Writers: :func:`write_sounding_csv` (our sounding table, rounded like real reports),
 :func:`write_grid_netcdf` (CF NetCDF on pressure levels) and :func:`write_grid_grib2` (GRIB2 from
@@ -26,8 +21,7 @@ References
 ----------
 [NOAA1976] U.S. Standard Atmosphere, 1976 (through ``balloonpath.atmosphere``).
 [Hellmann] The 1/7 power law for the wind profile in the surface layer, u(z) = u(10 m) (z / 10
-m)^(1/7):
-    common practice (engineering rule of thumb), not a fit to any real day.
+    m)^(1/7): common practice (engineering rule of thumb), not a fit to any real day.
 """
 
 from __future__ import annotations
@@ -141,8 +135,7 @@ class SyntheticAtmosphereField:
         Peak speed of the jet core on its axis (30-60 m/s is typical of mid-latitude jets).
     jet_altitude_m, jet_depth_m : float
         Altitude of the jet core and its vertical half-thickness (Gaussian sd above the core; below
-        it
-        the speed ramps up over the whole troposphere).
+        it the speed ramps up over the whole troposphere).
     jet_direction_deg : float
         Direction the jet blows FROM, degrees true (270: a westerly jet).
     jet_width_m : float
@@ -155,8 +148,8 @@ class SyntheticAtmosphereField:
         Boundary-layer depth above the ground, m.
     surface_turn_deg : float
         At the ground the wind is backed by this angle from the free-atmosphere wind (Ekman
-        turning),
-        decreasing linearly to zero at the boundary-layer top; mirrored in the southern hemisphere.
+        turning), decreasing linearly to zero at the boundary-layer top; mirrored in the southern
+        hemisphere.
     stratosphere_speed_m_s, stratosphere_direction_deg : float
         Wind reached above about 24 km (blended in between 18 and 24 km); 90 deg: summer easterlies.
     eddy_rms_m_s : float
@@ -223,14 +216,11 @@ class SyntheticAtmosphereField:
     def perturbed(
         self, seed: int, amplitude_m_s: float, n_modes: int = 12
     ) -> SyntheticAtmosphereField:
-        """This field plus extra seeded eddies: a smooth "forecast" whose error has rms
-        ``amplitude_m_s``.
+        """This field plus extra seeded eddies: a smooth "forecast" with error of rms ``amplitude``.
 
         The returned field equals this one plus ``n_modes`` modes (same spectrum as the eddies)
-        whose u and
-        v each have root-mean-square ``amplitude_m_s`` over space and time; the difference is
-        smooth and
-        correlated over hundreds of km, a few km in altitude and hours.
+        whose u and v each have root-mean-square ``amplitude_m_s`` over space and time; the
+        difference is smooth and correlated over hundreds of km, a few km in altitude and hours.
         """
         other = object.__new__(SyntheticAtmosphereField)
         other.__dict__.update(self.__dict__)
@@ -241,8 +231,7 @@ class SyntheticAtmosphereField:
 
     # ------------------------------------------------------------------------------- geometry
     def _local(self, lat: np.ndarray, lon: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Equirectangular east/north metres from the centre (smooth; the field's own
-        coordinates)."""
+        """Equirectangular east/north metres from the centre (the field's own coordinates)."""
         dlon = (np.asarray(lon, dtype=float) - self.center_lon + 180.0) % 360.0 - 180.0
         x = _EARTH_RADIUS_M * np.radians(dlon) * math.cos(math.radians(self.center_lat))
         y = _EARTH_RADIUS_M * np.radians(np.asarray(lat, dtype=float) - self.center_lat)
@@ -339,8 +328,7 @@ class SyntheticAtmosphereField:
         """Temperature (K), pressure (Pa) and dew point (K) at geometric altitudes.
 
         USSA 1976 temperature and pressure; the dew point is 3 K below the temperature at the
-        ground,
-        the depression growing by 1.5 K per km (invented, plausible for a dry-ish day).
+        ground, the depression growing by 1.5 K per km (invented, plausible for a dry-ish day).
         """
         z = np.asarray(alt_m, dtype=float)
         state = usa1976(z)
@@ -353,10 +341,8 @@ class SyntheticAtmosphereField:
         """Geometric altitude of a pressure level at the points (broadcast together).
 
         USSA 1976 pressure altitude times (1 - 0.01 erf(d / jet_width)), d the signed distance to
-        the left
-        of the jet axis (poleward for a westerly jet in the northern hemisphere): heights fall
-        toward the
-        cold side of the jet, by about 100 m at 10 km.
+        the left of the jet axis (poleward for a westerly jet in the northern hemisphere): heights
+        fall toward the cold side of the jet, by about 100 m at 10 km.
         """
         from scipy.special import erf
 
@@ -433,19 +419,16 @@ def write_sounding_csv(
     """Write the field's vertical profile at one site and time as a sounding table.
 
     A real sonde drifts with the wind; this writes the vertical column above the site (the drift is
-    part
-    of what the forecast should get right, not of the table). Columns ``altitude_m`` (whole metres),
-    ``pressure_hpa`` (0.1 hPa, 0.01 below 10 hPa), ``temperature_c``, ``dewpoint_c`` (0.1 deg C),
-    ``wind_direction_deg`` (FROM, whole degrees), ``wind_speed_m_s`` (0.1 m/s); header lines give
-    the
-    site and time. ``with_thermo=False`` writes altitude and wind only.
+    part of what the forecast should get right, not of the table). Columns ``altitude_m`` (whole
+    metres), ``pressure_hpa`` (0.1 hPa, 0.01 below 10 hPa), ``temperature_c``, ``dewpoint_c`` (0.1
+    deg C), ``wind_direction_deg`` (FROM, whole degrees), ``wind_speed_m_s`` (0.1 m/s); header lines
+    give the site and time. ``with_thermo=False`` writes altitude and wind only.
 
     Parameters
     ----------
     field : WindField
         Usually a :class:`SyntheticAtmosphereField` (its ``thermo`` gives T, p, dew point; other
-        fields
-        get USSA 1976 with a 5 K dew-point depression).
+        fields get USSA 1976 with a 5 K dew-point depression).
     lat, lon, time_s : float
         Site and time.
     path : str or Path
@@ -490,10 +473,8 @@ def write_grid_netcdf(
     Variables ``u`` (eastward_wind, m s-1), ``v`` (northward_wind, m s-1) and either ``z``
     (geopotential, m2 s-2, ``height="z"``) or ``gh`` (geopotential_height, m, ``height="gh"``), on
     dimensions (time, level, latitude, longitude); ``level`` in hPa (air_pressure, positive down),
-    time as
-    seconds since 1970-01-01. Longitudes are written as given (pass 0..360 or -180..180 values to
-    test
-    both conventions), latitudes too (descending is fine).
+    time as seconds since 1970-01-01. Longitudes are written as given (pass 0..360 or -180..180
+    values to test both conventions), latitudes too (descending is fine).
     """
     import xarray as xr
 
@@ -569,12 +550,10 @@ def write_grid_grib2(
     times_s: np.ndarray | tuple[float, ...] = (0.0,),
     bits_per_value: int = 24,
 ) -> Path:
-    """Write the field as GRIB2 messages (u, v, gh on isobaric levels) from ecCodes' ``GRIB2``
-    sample.
+    """Write the field as GRIB2 messages (u, v, gh on isobaric levels) from ecCodes' sample.
 
     The grid must be regular in latitude and longitude (``regular_ll``); the reference time is the
-    first
-    time (a whole hour) and later times are forecast steps in whole hours. Needs
+    first time (a whole hour) and later times are forecast steps in whole hours. Needs
     ``balloonpath[grib]``.
 
     Raises

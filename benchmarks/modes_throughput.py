@@ -1,0 +1,92 @@
+"""Throughput and memory of raw Mode-S decoding to wind observations (streamed, bounded memory).
+
+Generates invented traffic (balloonpath.winds.traffic) and writes about N raw-message lines to a temporary
+folder, then runs `derive_observations` on it in a fresh child process and prints messages per second and the
+child's peak resident memory (resource.getrusage). Two sizes are run (N/10 and N) to show that memory does not
+grow with the input: the reader keeps one line and a fixed state per aircraft; only the emitted rows (about one
+per Comm-B heading reply) are kept.
+
+Usage: python benchmarks/modes_throughput.py [--lines 1000000] [--seed 1]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+
+class _BenchWind:
+    """Analytic truth: westerly jet near 10.5 km, gentle gradients."""
+
+    def wind(self, lat, lon, alt_m, time_s):
+        z = np.asarray(alt_m, dtype=float)
+        u = 10.0 + 35.0 * np.exp(-(((z - 10_500.0) / 3_000.0) ** 2)) + 0.3 * (np.asarray(lat) - 46.5)
+        v = 3.0 - 1e-4 * z + 0.3 * (np.asarray(lon) - 9.0) + 0 * np.asarray(time_s)
+        return u, v
+
+
+def generate(path: Path, lines: int, seed: int) -> tuple[int, float]:
+    from balloonpath.timeutil import parse_iso
+    from balloonpath.winds.traffic import simulate_traffic, write_raw_messages
+
+    t0 = parse_iso("2027-05-14T05:00:00Z")
+    # About 2.6 messages per aircraft-second (position, velocity, two Comm-B every 4 s, some BDS 4,4);
+    # about 22 % of the simulated aircraft-time falls inside the hour (measured).
+    duration = 3600.0
+    n_aircraft = max(4, int(lines / (2.6 * duration * 0.22)))
+    start = time.perf_counter()
+    rng = np.random.default_rng(seed)
+    traffic = simulate_traffic(_BenchWind(), 46.5, 9.0, t0, duration, rng, n_aircraft=n_aircraft)
+    _, count = write_raw_messages(traffic, path, np.random.default_rng(seed + 1), corrupt_fraction=0.001,
+                                  malformed_fraction=0.0005)
+    return count, time.perf_counter() - start
+
+
+def decode_child(path: str) -> None:
+    import warnings
+
+    from balloonpath.winds.aircraft import derive_observations
+
+    warnings.simplefilter("ignore")
+    start = time.perf_counter()
+    obs, report = derive_observations(path)
+    elapsed = time.perf_counter() - start
+    peak_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    print(json.dumps({"seconds": elapsed, "lines": report.lines_read, "observations": len(obs),
+                      "rows": report.rows, "peak_rss_mb": peak_kb / 1024.0, "qc": report.lines()}))
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--lines", type=int, default=1_000_000)
+    parser.add_argument("--seed", type=int, default=1)
+    parser.add_argument("--decode-only", default=None, help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.decode_only:
+        decode_child(args.decode_only)
+        return
+    with tempfile.TemporaryDirectory() as folder:
+        for size in (args.lines // 10, args.lines):
+            path = Path(folder) / f"messages_{size}.csv"
+            count, gen_s = generate(path, size, args.seed)
+            out = subprocess.run([sys.executable, __file__, "--decode-only", str(path)], check=True,
+                                 capture_output=True, text=True).stdout
+            result = json.loads(out.strip().splitlines()[-1])
+            print(f"{count:>9} lines ({path.stat().st_size / 1e6:.0f} MB, generated in {gen_s:.1f} s): "
+                  f"{result['lines'] / result['seconds']:,.0f} messages/s, {result['seconds']:.1f} s, "
+                  f"peak RSS {result['peak_rss_mb']:.0f} MB, {result['rows']} aircraft states -> "
+                  f"{result['observations']} observations")
+            for line in result["qc"]:
+                print("           " + line)
+
+
+if __name__ == "__main__":
+    main()

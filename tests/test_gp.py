@@ -1,0 +1,298 @@
+"""Tests of the Gaussian-process wind field (balloonpath.winds.gp, gp_kernels, gp_sample).
+
+References checked against:
+- scikit-learn's GaussianProcessRegressor (reference implementation of [RW2006] Algorithm 2.1).
+- REFERENCES.md §11: the worked numbers of [RW2006] Algorithm 2.1 (X = 0..4, y = sin X).
+Statistical checks are seeded; their tolerances are stated beside each check.
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import pytest
+from scipy.linalg import cho_solve
+
+from balloonpath.errors import DataQualityWarning, FitWarning, InputDataError
+from balloonpath.geodesy import LocalProjection
+from balloonpath.winds.field import UniformField
+from balloonpath.winds.gp import (
+    BackgroundErrorField,
+    Posterior,
+    background_error_sigma,
+    fit_wind_field,
+    load_wind_field,
+)
+from balloonpath.winds.gp_kernels import GPHyperparameters, log_marginal_likelihood, se_kernel
+from balloonpath.winds.gp_sample import FastProjection
+from balloonpath.winds.observations import WindObservations
+
+T0 = 1_900_000_000.0  # an invented launch day, POSIX seconds
+LAT0, LON0 = -41.3, 173.2  # invented scenario "Tarnwick Plain", southern and eastern: negative latitude
+
+
+def _obs(rng, n, *, alt=(8000.0, 12000.0), u=None, v=None, sigma=1.0):
+    lat = LAT0 + rng.uniform(-1.0, 1.0, n)
+    lon = LON0 + rng.uniform(-1.2, 1.2, n)
+    alt_m = rng.uniform(*alt, n)
+    t = T0 + rng.uniform(-3, 3, n) * 3600
+    u = rng.normal(0, 3, n) if u is None else u
+    v = rng.normal(0, 3, n) if v is None else v
+    return WindObservations(t, lat, lon, alt_m, u, v, np.full(n, sigma), np.array(["test"] * n, dtype=object))
+
+
+def test_rw2006_worked_example():
+    # REFERENCES.md §11 ([RW2006] Alg. 2.1, computed): X = 0..4, y = sin X, SE l = 1, sf^2 = 1, sn^2 = 0.01.
+    x = np.zeros((5, 4))
+    x[:, 0] = np.arange(5.0)
+    y = np.sin(x[:, :1])
+    hp = GPHyperparameters(1.0, 1.0, 1.0, 1.0)
+    post = Posterior(x, y, np.full(5, 0.01), hp)
+    mean, var = post.mean_var(np.array([[2.5, 0, 0, 0]]))
+    assert mean[0, 0] == pytest.approx(0.6012109633, rel=1e-8)
+    assert var[0] == pytest.approx(0.0160467489, rel=1e-7)
+    lml, _ = log_marginal_likelihood(hp.to_log(), x, y, np.full(5, 0.01))
+    assert lml == pytest.approx(-4.4691886467, rel=1e-9)
+
+
+def test_matches_scikit_learn():
+    # Reference: scikit-learn GaussianProcessRegressor with ConstantKernel * RBF(anisotropic), per-point
+    # alpha = noise variance, optimizer=None: same posterior mean, latent sd and log marginal likelihood.
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import RBF, ConstantKernel
+
+    rng = np.random.default_rng(3)
+    n = 120
+    x = np.column_stack([rng.uniform(-200, 200, (n, 2)), rng.uniform(0, 15, n), rng.uniform(-4, 4, n)])
+    y = rng.normal(0, 3, (n, 2))
+    noise = rng.uniform(0.5, 2.0, n) ** 2
+    hp = GPHyperparameters(90.0, 1.3, 3.0, 2.7)
+    kernel = ConstantKernel(hp.sigma_m_s**2, "fixed") * RBF(hp.lengths(), "fixed")
+    ref = GaussianProcessRegressor(kernel, alpha=noise, optimizer=None, normalize_y=False).fit(x, y)
+    xs = np.column_stack([rng.uniform(-300, 300, (50, 2)), rng.uniform(0, 20, 50), rng.uniform(-6, 6, 50)])
+    mean_ref, std_ref = ref.predict(xs, return_std=True)
+    post = Posterior(x, y, noise, hp)
+    mean, var = post.mean_var(xs)
+    np.testing.assert_allclose(mean, mean_ref, rtol=1e-6, atol=1e-9)
+    np.testing.assert_allclose(np.sqrt(var), std_ref[:, 0], rtol=1e-6)
+    lml, _ = log_marginal_likelihood(hp.to_log(), x, y, noise)
+    assert lml == pytest.approx(ref.log_marginal_likelihood_value_, rel=1e-6)
+
+
+def test_gradient_matches_finite_differences():
+    # Invariant ([RW2006] eq. 5.9): analytic gradient equals central differences (step 1e-5 in log space).
+    rng = np.random.default_rng(4)
+    x = np.column_stack([rng.uniform(-100, 100, (60, 2)), rng.uniform(0, 10, 60), rng.uniform(-3, 3, 60)])
+    y = rng.normal(0, 2, (60, 2))
+    theta = np.log([80.0, 1.2, 2.5, 2.0])
+    _, grad = log_marginal_likelihood(theta, x, y, np.full(60, 0.3))
+    for j in range(4):
+        e = np.zeros(4)
+        e[j] = 1e-5
+        num = (log_marginal_likelihood(theta + e, x, y, np.full(60, 0.3))[0]
+               - log_marginal_likelihood(theta - e, x, y, np.full(60, 0.3))[0]) / 2e-5
+        assert grad[j] == pytest.approx(num, rel=1e-5)
+
+
+def _draw_truth_obs(hp, n, rng, noise_sd=0.5):
+    """Observations of a field drawn from a known GP (the synthetic truth), in local coordinates."""
+    proj = LocalProjection(LAT0, LON0)
+    x = np.column_stack([rng.uniform(-250, 250, (n, 2)), rng.uniform(1, 13, n), rng.uniform(-4, 4, n)])
+    k = se_kernel(x, x, hp) + 1e-8 * np.eye(n)
+    f = np.linalg.cholesky(k) @ rng.standard_normal((n, 2))
+    lat, lon = proj.to_geographic(x[:, 0] * 1e3, x[:, 1] * 1e3)
+    y = f + noise_sd * rng.standard_normal((n, 2))
+    return WindObservations(T0 + x[:, 3] * 3600, lat, lon, x[:, 2] * 1e3, y[:, 0], y[:, 1],
+                            np.full(n, noise_sd), np.array(["gp"] * n, dtype=object))
+
+
+def test_learned_length_scales_recover_truth():
+    # Truth drawn from a known GP; learned length scales within a factor 1.5 of it (issue #5 criterion).
+    truth = GPHyperparameters(120.0, 1.0, 3.0, 3.0)
+    obs = _draw_truth_obs(truth, 400, np.random.default_rng(11))
+    field = fit_wind_field(obs, UniformField(0.0, 0.0), center=(LAT0, LON0, T0), rng=np.random.default_rng(1))
+    hp = field.hyperparameters
+    for got, want in ((hp.length_h_km, 120.0), (hp.length_z_km, 1.0), (hp.length_t_h, 3.0), (hp.sigma_m_s, 3.0)):
+        assert want / 1.5 <= got <= want * 1.5
+
+
+def test_variance_shrinks_near_observations_and_returns_far_away():
+    rng = np.random.default_rng(5)
+    obs = _obs(rng, 40, sigma=0.5)
+    hp = GPHyperparameters(80.0, 1.0, 3.0, 3.0)
+    field = fit_wind_field(obs, UniformField(5.0, 0.0), hyperparameters=hp, optimize=False)
+    near, _ = field.std(obs.lat[:3], obs.lon[:3], obs.alt_m[:3], obs.time_s[:3])
+    assert np.all(near < 0.6)  # about the observation error, far below the prior 3 m/s
+    far, _ = field.std(LAT0 + 12.0, LON0, 10_000.0, T0)
+    assert float(far) == pytest.approx(3.0, rel=1e-6)
+    u_far, v_far = field.wind(LAT0 + 12.0, LON0, 10_000.0, T0)
+    assert float(u_far) == pytest.approx(5.0, abs=1e-6) and float(v_far) == pytest.approx(0.0, abs=1e-6)
+
+
+def test_samples_match_posterior_covariance():
+    # Empirical covariance of 4000 realisations at 5 points vs the exact posterior covariance.
+    # Tolerance: |C_emp - C| <= 0.12 sqrt(C_ii C_jj) + 0.02 m^2/s^2: the sampling sd of a variance from
+    # 4000 draws is sqrt(2/4000) = 2.2 % (a correlation's is <= 1.6 %), so 0.12 allows 4 sigma of sampling
+    # plus the grid approximation (measured 5-10 %, docs/winds-gp.md).
+    rng = np.random.default_rng(6)
+    hp = GPHyperparameters(100.0, 1.0, 4.0, 3.0)
+    obs = _draw_truth_obs(hp, 60, rng)
+    field = fit_wind_field(obs, UniformField(0.0, 0.0), hyperparameters=hp, optimize=False,
+                           center=(LAT0, LON0, T0))
+    field = field.with_corridor(LAT0 - 2.5, LAT0 + 2.5, LON0 - 3.2, LON0 + 3.2, 15_000.0,
+                                T0 - 4.5 * 3600, T0 + 4.5 * 3600)
+    n = 4000
+    members = field.sample(n, np.random.default_rng(7))
+    pts = np.array([
+        [obs.lat[0], obs.lon[0], obs.alt_m[0], obs.time_s[0]],
+        [obs.lat[1], obs.lon[1], obs.alt_m[1] + 400.0, obs.time_s[1] + 1800.0],
+        [LAT0 + 0.3, LON0 - 0.4, 6_000.0, T0 + 3600.0],
+        [LAT0 - 2.0, LON0 + 2.5, 14_000.0, T0 - 3 * 3600.0],
+        [LAT0, LON0, 10_000.0, T0],
+    ])
+    u = np.empty((n, 5))
+    v = np.empty((n, 5))
+    idx = np.arange(n)
+    for j, p in enumerate(pts):
+        u[:, j], v[:, j] = members.wind(idx, *(np.full(n, c) for c in p))
+    xs = field._local(*pts.T)
+    ks = se_kernel(field.posterior.x, xs, hp)
+    cov = se_kernel(xs, xs, hp) - ks.T @ cho_solve((field.posterior.chol, True), ks)
+    scale = np.sqrt(np.outer(np.diag(cov), np.diag(cov)))
+    for comp in (u, v):
+        assert np.all(np.abs(np.cov(comp.T) - cov) <= 0.12 * scale + 0.02)
+    # u and v are independent: cross-correlations within 4 sampling sd (1/sqrt(4000) = 1.6 %)
+    cross = np.corrcoef(u.T, v.T)[:5, 5:]
+    assert np.all(np.abs(cross) < 0.065)
+    # the sample mean follows the (gridded) posterior mean within 4 standard errors + grid error 0.15 m/s
+    mean, _ = field.posterior.mean_var(xs)
+    se = np.sqrt(np.diag(cov) / n)
+    assert np.all(np.abs(u.mean(axis=0) - mean[:, 0]) <= 4 * se + 0.15)
+
+
+def test_samples_are_deterministic_and_bounded():
+    rng = np.random.default_rng(8)
+    field = fit_wind_field(_obs(rng, 30), UniformField(0, 0), optimize=False)
+    a = field.sample(50, np.random.default_rng(1))
+    b = field.sample(50, np.random.default_rng(1))
+    assert a.deviations.tobytes() == b.deviations.tobytes()
+    assert field.sample(1000, np.random.default_rng(1)).nbytes < 300e6  # issue #5: < 300 MB for 1000
+
+
+def test_background_error_field_samples_have_prior_sd():
+    bg = UniformField(10.0, -3.0)
+    field = BackgroundErrorField(bg, background_error_sigma(24.0), center=(LAT0, LON0, T0))
+    assert isinstance(field.sample(1, np.random.default_rng(0)).n_members, int)
+    members = field.sample(2000, np.random.default_rng(2))
+    n = 2000
+    u, v = members.wind(np.arange(n), np.full(n, LAT0 + 0.7), np.full(n, LON0 - 1.1),
+                        np.full(n, 7_300.0), np.full(n, T0 + 5000.0))
+    sigma = background_error_sigma(24.0)
+    # sd of a sample sd from 2000 draws: sigma / sqrt(2 * 2000) = 1.6 %; allow 5 % (3 sd)
+    assert np.std(u) == pytest.approx(sigma, rel=0.05)
+    assert np.std(v) == pytest.approx(sigma, rel=0.05)
+    assert np.mean(u) == pytest.approx(10.0, abs=4 * sigma / np.sqrt(n))
+    std_u, _ = field.std(LAT0, LON0, 5000.0, T0)
+    assert float(std_u) == sigma
+
+
+def test_background_error_sigma_grows_with_lead_time():
+    # From memory (docs/winds-gp.md): 2.5 m/s at analysis, +0.06 m/s per hour, capped at 10 m/s.
+    assert background_error_sigma(0.0) == pytest.approx(2.5)
+    assert background_error_sigma(48.0) == pytest.approx(2.5 + 0.06 * 48)
+    assert background_error_sigma(1000.0) == pytest.approx(10.0)
+
+
+def test_fast_projection_matches_pyproj():
+    # Reference: pyproj azimuthal equidistant (LocalProjection); cubic fit within 0.1 km over +-3 deg.
+    proj = LocalProjection(LAT0, 179.5)
+    fast = FastProjection(proj, LAT0 - 3, LAT0 + 3, 4.0)
+    rng = np.random.default_rng(9)
+    lat = LAT0 + rng.uniform(-2.8, 2.8, 500)
+    lon = ((179.5 + rng.uniform(-3.8, 3.8, 500)) + 180) % 360 - 180  # crosses the antimeridian
+    x, y = proj.to_local(lat, lon)
+    fx, fy = fast.to_local_km(lat, lon)
+    assert np.max(np.hypot(fx - x / 1e3, fy - y / 1e3)) < 0.1
+
+
+def test_save_load_round_trip(tmp_path):
+    rng = np.random.default_rng(10)
+    field = fit_wind_field(_obs(rng, 50), UniformField(4.0, 1.0), optimize=False)
+    path = field.save(tmp_path / "field.npz")
+    again = load_wind_field(path)
+    lat, lon, alt, t = LAT0 + 0.2, LON0 - 0.3, 9_500.0, T0 + 600.0
+    np.testing.assert_allclose(again.wind(lat, lon, alt, t), field.wind(lat, lon, alt, t), rtol=1e-12)
+    np.testing.assert_allclose(again.std(lat, lon, alt, t), field.std(lat, lon, alt, t), rtol=1e-12)
+    (tmp_path / "bad.npz").write_bytes(b"not a field")
+    with pytest.raises(InputDataError, match="bad.npz: file: is not a fitted wind field"):
+        load_wind_field(tmp_path / "bad.npz")
+
+
+def test_degenerate_inputs_do_not_crash():
+    rng = np.random.default_rng(12)
+    bg = UniformField(0.0, 0.0)
+    # NaN rows are dropped with a warning
+    obs = _obs(rng, 30)
+    u = obs.u.copy()
+    u[3] = np.nan
+    obs = WindObservations(obs.time_s, obs.lat, obs.lon, obs.alt_m, u, obs.v, obs.sigma, obs.source)
+    with pytest.warns(DataQualityWarning, match="dropped 1 of 30"):
+        fit_wind_field(obs, bg, optimize=False)
+    # exact duplicates are merged
+    dup = _obs(rng, 25).select(np.r_[np.arange(25), np.arange(25)])
+    with pytest.warns(DataQualityWarning, match="merged 25 duplicate"):
+        field = fit_wind_field(dup, bg, optimize=False)
+    assert np.all(np.isfinite(field.std(dup.lat, dup.lon, dup.alt_m, dup.time_s)[0]))
+    # all observations at one altitude and one time: those length scales are not learned
+    flat = _obs(rng, 40, alt=(10_000.0, 10_000.0))
+    flat = WindObservations(np.full(40, T0), *(getattr(flat, f) for f in ("lat", "lon", "alt_m", "u", "v",
+                                                                           "sigma", "source")))
+    with pytest.warns(FitWarning, match="too little in vertical, time"):
+        field = fit_wind_field(flat, bg, rng=np.random.default_rng(0))
+    assert field.hyperparameters.length_z_km == GPHyperparameters().length_z_km
+    # a single aircraft: a handful of reports along one track -> defaults, warning
+    one = _obs(rng, 5)
+    with pytest.warns(FitWarning, match="only 5 observations"):
+        field = fit_wind_field(one, bg)
+    # nothing usable: background-error field
+    with pytest.warns(FitWarning, match="no usable observations"):
+        field = fit_wind_field(WindObservations.empty(), bg, center=(LAT0, LON0))
+    assert isinstance(field, BackgroundErrorField)
+
+
+def test_fused_field_halves_background_error_on_invented_scenario():
+    # Invented scenario: truth = synthetic atmosphere; background = truth + smooth 4 m/s error;
+    # observations = the truth wind at simulated aircraft states (balloonpath.winds.traffic), thinned to one
+    # report per aircraft per 2 minutes, with 1.5 m/s noise. The corridor check: points within 120 km of
+    # the centre, 3-12 km altitude (where aircraft fly), inside the observation window.
+    from balloonpath.winds.synthetic import SyntheticAtmosphereField
+    from balloonpath.winds.traffic import simulate_traffic
+
+    rng = np.random.default_rng(13)
+    truth = SyntheticAtmosphereField(LAT0, LON0, T0, seed=3)
+    background = truth.perturbed(seed=4, amplitude_m_s=4.0)
+    traffic = simulate_traffic(truth, LAT0, LON0, T0, 3 * 3600.0, rng, n_aircraft=30, step_s=120.0)
+    act = traffic.active & (traffic.alt_m > 2000.0)
+    n = int(act.sum())
+    obs = WindObservations(
+        np.broadcast_to(traffic.time_s[:, None], act.shape)[act], traffic.lat[act], traffic.lon[act],
+        traffic.alt_m[act], traffic.wind_u[act] + rng.normal(0, 1.5, n),
+        traffic.wind_v[act] + rng.normal(0, 1.5, n), np.full(n, 1.5), np.array(["aircraft"] * n, dtype=object),
+    )
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FitWarning)
+        field = fit_wind_field(obs, background, center=(LAT0, LON0, T0 + 5400.0), rng=np.random.default_rng(0))
+    proj = LocalProjection(LAT0, LON0)
+    m = 800
+    r = 120e3 * np.sqrt(rng.uniform(0, 1, m))
+    az = rng.uniform(0, 2 * np.pi, m)
+    lat, lon = proj.to_geographic(r * np.sin(az), r * np.cos(az))
+    alt = rng.uniform(3000.0, 12000.0, m)
+    t = T0 + rng.uniform(0.5, 2.5, m) * 3600
+    ut, vt = truth.wind(lat, lon, alt, t)
+    ub, vb = background.wind(lat, lon, alt, t)
+    uf, vf = field.wind(lat, lon, alt, t)
+    rmse_bg = np.sqrt(np.mean((ub - ut) ** 2 + (vb - vt) ** 2))
+    rmse_fused = np.sqrt(np.mean((uf - ut) ** 2 + (vf - vt) ** 2))
+    assert rmse_fused <= 0.5 * rmse_bg
