@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed-test
 
-.PHONY: demo test lint bench clean
+.PHONY: demo test lint bench clean docs-plan
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -28,3 +28,6 @@ bench: $(STAMP)
 
 clean:
 	rm -rf $(VENV) outputs
+
+docs-plan: $(STAMP)
+	$(BIN)/python -c "from balloonpath.plan import schema_markdown; open('docs/plan.md', 'w').write(schema_markdown())"

@@ -144,8 +144,12 @@ def fly_nominal(plan: Plan, winds: LoadedWinds, launch_time_s: float | None = No
     return traj, params
 
 
-def _corridor_for(field: UncertainWindField, plan: Plan, nominal: Trajectories) -> None:
-    """Tell the field where realisations will be evaluated (around the nominal flight)."""
+def set_corridor(field: UncertainWindField, plan: Plan, nominal: Trajectories,
+                 extra_time_s: float = 0.0) -> None:
+    """Tell the field where realisations will be evaluated: around the nominal flight.
+
+    ``extra_time_s`` widens the time range (a launch-window sweep covers all its launch times at once).
+    """
     if not hasattr(field, "with_corridor"):
         return
     lats = np.concatenate([[plan.launch.latitude], nominal.tracks["lat"][0]])
@@ -158,8 +162,17 @@ def _corridor_for(field: UncertainWindField, plan: Plan, nominal: Trajectories) 
         float(lats.min() - dlat), float(lats.max() + dlat), float(lons.min() - dlon), float(lons.max() + dlon),
         alt_max_m=top * 1.25 + 1000.0,
         time_min_s=float(np.nanmin(nominal.tracks["time_s"][0]) - 3600.0),
-        time_max_s=float(nominal.landing_time_s[0] + CORRIDOR_MARGIN_S),
+        time_max_s=float(nominal.landing_time_s[0] + CORRIDOR_MARGIN_S + extra_time_s),
     )
+
+
+def draw_member_winds(winds: LoadedWinds, n_members: int, seed: int) -> MemberWinds:
+    """Wind realisations for members 0..n-1 (member 0 flies the mean), from the seed's wind stream.
+
+    Call :func:`set_corridor` first when the field needs a corridor.
+    """
+    rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(2**32 - 1,)))
+    return _NominalFirst(winds.field, winds.field.sample(n_members, rng))
 
 
 def run_forecast(
@@ -169,6 +182,7 @@ def run_forecast(
     winds: LoadedWinds | None = None,
     launch_time_s: float | None = None,
     progress: Callable[[int, int], None] | None = None,
+    member_winds: MemberWinds | None = None,
 ) -> ForecastResult:
     """Fly the nominal balloon and an ensemble through the plan's winds.
 
@@ -184,6 +198,9 @@ def run_forecast(
         Override the launch time (POSIX seconds).
     progress : callable, optional
         ``progress(n_landed, n_total)`` after each integration step.
+    member_winds : MemberWinds, optional
+        Realisations drawn beforehand (:func:`draw_member_winds`), e.g. once for a whole launch-window
+        sweep; they must cover at least ``members`` members and the flight's corridor.
 
     Returns
     -------
@@ -212,13 +229,12 @@ def run_forecast(
                 np.concatenate([[1.0], f.descent]), atmosphere=winds.atmosphere,
             )
             delays = np.concatenate([[0.0], f.launch_delay_s])
-            if ens.wind_uncertainty:
-                _corridor_for(winds.field, plan, nominal)
-                rng = np.random.default_rng(np.random.SeedSequence(s, spawn_key=(2**32 - 1,)))
-                sampled = winds.field.sample(n, rng)
-                member_winds: MemberWinds = _NominalFirst(winds.field, sampled)
-            else:
-                member_winds = MeanMemberWinds(winds.field, n)
+            if member_winds is None:
+                if ens.wind_uncertainty:
+                    set_corridor(winds.field, plan, nominal)
+                    member_winds = draw_member_winds(winds, n, s)
+                else:
+                    member_winds = MeanMemberWinds(winds.field, n)
             state = State.at_launch(
                 plan.launch.latitude, plan.launch.longitude, plan.launch.elevation_m, t0 + delays[1:], n - 1
             )

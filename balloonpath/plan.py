@@ -501,7 +501,8 @@ def schema_markdown() -> str:
                 rng = " / ".join(meta["choices"])
             elif low is not None or high is not None:
                 rng = f"{'>' if meta.get('low_open') else '≥'} {low:g}" if low is not None else ""
-                rng += (", " if rng else "") + (f"≤ {high:g}" if high is not None else "")
+                if high is not None:
+                    rng += (", " if rng else "") + f"≤ {high:g}"
             lines.append(f"| `{f.name}` | {_type_name(hints[f.name])} | {default} | {rng} | {meta.get('doc', '')} |")
         lines.append("")
     return "\n".join(lines)

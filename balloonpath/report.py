@@ -334,10 +334,11 @@ def speed_with_sd(u: np.ndarray, v: np.ndarray, u_sd: np.ndarray,
 
     Notes
     -----
-    First-order propagation of independent errors of u and v (the delta method, e.g. [JCGM2008]
-    GUM eq. 10): sd_s^2 = (u sd_u / s)^2 + (v sd_v / s)^2. Where s < 0.1 m/s the derivative is
-    undefined and the root mean square sqrt((sd_u^2 + sd_v^2) / 2) is used instead. This is a
-    display aid: near calm the speed's distribution is skewed and the band is only indicative.
+    First-order propagation of independent errors of u and v (the delta method; JCGM 100:2008,
+    "GUM", eq. 10, from memory): sd_s^2 = (u sd_u / s)^2 + (v sd_v / s)^2. Where s < 0.1 m/s the
+    derivative is undefined and the root mean square sqrt((sd_u^2 + sd_v^2) / 2) is used instead.
+    This is a display aid: near calm the speed's distribution is skewed and the band is only
+    indicative.
     """
     u, v, su, sv = np.broadcast_arrays(*(np.asarray(a, dtype=float) for a in (u, v, u_sd, v_sd)))
     s = np.hypot(u, v)
@@ -421,10 +422,13 @@ def wind_profile_png(profile: Mapping[str, np.ndarray], burst_alt_m: float | Non
         (v, sv, "v", "north (v)", "--", 1.6),
         (speed, s_sd, "speed", "speed", "-", 2.2),
     ):
-        lo = mean - 2.0 * sd
+        lo, hi = mean - 2.0 * sd, mean + 2.0 * sd
         if role == "speed":
-            lo = np.maximum(lo, 0.0)
-        ax.fill_betweenx(alt_km, lo, mean + 2.0 * sd, color=colours[role], alpha=0.16, linewidth=0)
+            # Outlined rather than filled, so that it does not muddy the u band it overlaps.
+            ax.plot(np.maximum(lo, 0.0), alt_km, ":", color=colours[role], linewidth=0.9)
+            ax.plot(hi, alt_km, ":", color=colours[role], linewidth=0.9)
+        else:
+            ax.fill_betweenx(alt_km, lo, hi, color=colours[role], alpha=0.18, linewidth=0)
         ax.plot(mean, alt_km, style, color=colours[role], linewidth=width, label=label)
     ax.axvline(0.0, color="#4f5b66", linewidth=0.8)
     if burst_alt_m is not None and _finite(burst_alt_m):
@@ -432,7 +436,7 @@ def wind_profile_png(profile: Mapping[str, np.ndarray], burst_alt_m: float | Non
         ax.axhline(top_km, color=colours["burst"], linewidth=1.0, linestyle=":")
         ax.annotate("burst (nominal)", (0.99, top_km), xycoords=("axes fraction", "data"),
                     ha="right", va="bottom", fontsize=8, color=REPORT_COLOURS["speed"])
-    ax.set_xlabel("wind, m/s (shaded: \u00b12\u03c3)")
+    ax.set_xlabel("wind, m/s (bands: \u00b12\u03c3; speed band dotted)")
     ax.set_ylabel("altitude above sea level, km")
     ax.grid(True, color=colours["grid"], linewidth=0.6)
     ax.set_axisbelow(True)
@@ -505,9 +509,11 @@ def checklist_section(folder: Path, plan_name: str, launch_time: str | None = No
     ``launch_time`` (ISO 8601) it belongs to another forecast and is flagged as out of date.
     """
     path = folder / "checklist.json"
+    # The folder is named DIR, not by its path, so that the page does not depend on where the
+    # forecast was written (the same forecast in another folder gives the same bytes).
     how = (f"<p>To add it: <code>balloonpath checklist {_e(plan_name or 'PLAN.toml')} --forecast "
-           f"{_e(folder.name or 'DIR')} --out {_e(folder.name or 'DIR')}/checklist.md</code>; the "
-           "next forecast written into this folder shows its status here.</p>")
+           "DIR --out DIR/checklist.md</code> (DIR: this forecast folder); the next forecast "
+           "written into the folder shows its status here.</p>")
     if not path.exists():
         return '<p><span class="status info">\u2139 not run</span> for this forecast.</p>' + how
     try:
@@ -602,7 +608,7 @@ def plan_rows(plan: Any, zone: ZoneInfo | None
         p = plan.payload
         flight.append(("Payload (below the neck)", fmt_number(p.mass_kg * 1000.0, 0, "g")))
         for pkg in p.package:
-            flight.append((f"  package {pkg.name}", fmt_number(pkg.mass_kg * 1000.0, 0, "g")))
+            flight.append((f"Package: {pkg.name}", fmt_number(pkg.mass_kg * 1000.0, 0, "g")))
     if plan.parachute is not None:
         c = plan.parachute
         flight.append(("Parachute", f"{fmt_number(c.diameter_m, 2, 'm')} diameter, drag "
@@ -800,6 +806,25 @@ def _scalar(v: Any) -> str:
     return str(v)
 
 
+_WIND_INFO_LABELS = {
+    "aircraft_qc": "Aircraft-report quality control",
+    "forecast_lead_h_assumed": "Forecast lead time assumed, h",
+}
+
+
+def _compact(value: Any, depth: int = 0) -> str:
+    """One line for a nested value: zero and empty entries left out, at most 12 entries a level."""
+    if isinstance(value, Mapping):
+        parts = [f"{str(k).replace('_', ' ')} {_compact(v, depth + 1)}" for k, v in value.items()
+                 if not (v in (0, None, "") or (isinstance(v, list | tuple | Mapping) and not v))]
+        text = "; ".join(parts[:12]) + (" …" if len(parts) > 12 else "")
+        return f"({text})" if depth else (text or "nothing to report")
+    if isinstance(value, list | tuple):
+        return ", ".join(_compact(v, depth + 1) for v in list(value)[:12]) + (
+            " …" if len(value) > 12 else "")
+    return _scalar(value)
+
+
 def method_rows(summary: Mapping[str, Any], result: ForecastResult) -> list[tuple[str, str]]:
     """Rows of "How this forecast was made": sources, observations, GP, software, seed."""
     winds = summary.get("winds") or {}
@@ -813,14 +838,15 @@ def method_rows(summary: Mapping[str, Any], result: ForecastResult) -> list[tupl
         flat: list[tuple[str, str]] = []
         _flatten("", gp, flat)
         rows += [(f"GP {k}", v) for k, v in flat[:30]]
+    elif winds.get("observations"):
+        rows.append(("GP hyperparameters", "not reported by the wind field"))
     else:
-        rows.append(("GP correction", "none (no observations, or no fitted field)"))
+        rows.append(("GP correction", "none: no observations were fused, the background's own "
+                                      "error model gives the uncertainty"))
     for key, value in winds.items():
         if key in ("sources", "observations", "gp"):
             continue
-        flat = []
-        _flatten(key, value, flat)
-        rows += [(k.replace("_", " "), v) for k, v in flat[:15]]
+        rows.append((_WIND_INFO_LABELS.get(key, key.replace("_", " ")), _compact(value)))
     ens = summary.get("ensemble") or {}
     rows += [
         ("Members", f"{ens.get('members', result.n_members)} (member 0 is the nominal run: mean "
@@ -932,8 +958,8 @@ def render_report(result: ForecastResult, zones: Any, summary: Mapping[str, Any]
         '<section aria-labelledby="h-wind"><h2 id="h-wind">Wind above the launch site</h2>'
         + _figure(wind_png, "Wind profile above the launch site with two-sigma bands",
                   "Mean east (u), north (v) and speed of the wind over the launch site at launch "
-                  "time; shaded bands span ±2 standard deviations of the wind model (the speed "
-                  f"band to first order). {obs_text}",
+                  "time; the bands span ±2 standard deviations of the wind model (shaded for u "
+                  f"and v, dotted for the speed, which is taken to first order). {obs_text}",
                   "The forecast result carries no wind profile.")
         + "</section>"
     )

@@ -125,6 +125,7 @@ def synthetic_result(plan_path: Path, n: int = 301, seed: int = 11, observations
         "observations": 60 if observations else 0,
         "gp": {"length_h_km": 142.5, "length_z_km": 1.31, "length_t_h": 5.5, "sigma_m_s": 2.25}
         if observations else None,
+        "aircraft_qc": {"lines_read": 120, "crc_failed": 0, "unknown_columns": [], "accepted": 101},
     }
     return ForecastResult(
         launch_lat=LAT0, launch_lon=LON0, launch_alt_m=ELEV0, launch_time_s=t0, nominal=nominal,
@@ -292,6 +293,27 @@ def test_ensemble_statistics_against_direct_numpy_and_pyproj(tmp_path, write_pla
     assert "Launch delay" not in rows  # all zero: not shown
 
 
+def _relative_luminance(hex_colour: str) -> float:
+    # WCAG 2.1, definition of relative luminance (sRGB linearisation), from memory.
+    c = np.array([int(hex_colour.lstrip("#")[i:i + 2], 16) / 255.0 for i in (0, 2, 4)])
+    lin = np.where(c <= 0.03928, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+    return float(np.dot([0.2126, 0.7152, 0.0722], lin))
+
+
+def test_stylesheet_text_colours_meet_the_contrast_minimum():
+    # WCAG 2.1 success criterion 1.4.3: contrast (L1 + 0.05) / (L2 + 0.05) >= 4.5 for body text
+    # (from memory). Pairs: each text colour on the backgrounds it is used on.
+    css = report._stylesheet()
+    var = dict(re.findall(r"--([a-z-]+):\s*(#[0-9a-fA-F]{6})", css))
+    pairs = [("ink", "#ffffff"), ("ink", var["panel"]), ("muted", "#ffffff"),
+             ("muted", var["panel"]), ("accent", "#ffffff"), ("caution-ink", var["caution-bg"]),
+             ("attention", "#ffffff"), ("attention", var["panel"]), ("good", "#ffffff"),
+             ("good", var["panel"])]
+    for fg, bg in pairs:
+        hi, lo = sorted((_relative_luminance(var[fg]), _relative_luminance(bg)), reverse=True)
+        assert (hi + 0.05) / (lo + 0.05) >= 4.5, (fg, bg)
+
+
 # --------------------------------------------------------------------------------- the document
 @pytest.fixture(scope="module")
 def built(tmp_path_factory):
@@ -348,18 +370,20 @@ def test_report_shows_the_key_numbers_and_sections(built):
     assert "not legal advice" in text and "aviation authority decides" in text
     assert "Millpond Reservoir" in text
     assert "not computed" in text  # water was not asked for
-    assert "not run" in text and "balloonpath checklist plan.toml --forecast fc" in text
+    assert "not run" in text
+    assert "balloonpath checklist plan.toml --forecast DIR --out DIR/checklist.md" in text
     assert "length_h_km" in text and "142.5" in text  # GP hyperparameters
     assert "sounding brambleford_0600.csv" in text
+    assert "Aircraft-report quality control lines read 120; accepted 101" in text  # zeros left out
     assert "a hyperparameter reached its bound" in text
     assert f"seed {built['result'].seed}" in text
     assert "Brambleford Common" in text
 
 
 def test_same_inputs_give_identical_bytes(built, tmp_path):
-    # A folder of the same name (it is quoted in the checklist hint) with the same map.png and
-    # profile.png, so that only determinism is tested.
-    folder = tmp_path / built["folder"].name
+    # Another folder with the same map.png and profile.png: the page does not depend on where it
+    # is written.
+    folder = tmp_path / "elsewhere"
     folder.mkdir()
     for name in ("map.png", "profile.png"):
         shutil.copy(built["folder"] / name, folder / name)
@@ -528,11 +552,12 @@ def test_browser_renders_a_page_that_is_not_blank(rendered):
     from PIL import Image
 
     with Image.open(rendered["shot"]) as im:
-        rgb = np.asarray(im.convert("RGB"), dtype=float)
+        rgb = np.asarray(im.convert("RGB"))
     assert rgb.shape[0] >= 1000 and rgb.shape[1] >= 1000
-    flat = rgb.reshape(-1, 3)
-    colours, counts = np.unique(flat, axis=0, return_counts=True)
-    background = colours[np.argmax(counts)]
+    packed = rgb.astype(np.int64) @ np.array([1 << 16, 1 << 8, 1])
+    colours, counts = np.unique(packed, return_counts=True)
+    top = int(colours[np.argmax(counts)])
+    background = np.array([top >> 16, (top >> 8) & 255, top & 255], dtype=float)
     differs = np.any(np.abs(rgb - background) > 30, axis=-1)
     # A blank or unstyled page has one or two colours; text, cards and figures cover a good part of
     # this one (about 13 % of the pixels differ clearly from the background) in many colours.

@@ -191,7 +191,7 @@ def test_coverage_hold_below_and_policy_above():
     with pytest.raises(CoverageError, match="alt_m 6000"):
         field.wind(0.0, 0.0, 6000.0, 0.0)
     held = SoundingField([s], outside="hold")
-    with pytest.warns(CoverageWarning, match="edge value held"):
+    with pytest.warns(CoverageWarning, match="edge values held"):
         u, _ = held.wind(0.0, 0.0, 6000.0, 0.0)
     assert float(u) == 5.0
 

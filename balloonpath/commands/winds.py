@@ -12,7 +12,7 @@ winds_app = typer.Typer(
 )
 
 # Modules that add sub-commands to `winds_app` through their own register(winds_app).
-WINDS_COMMAND_MODULES: tuple[str, ...] = ("winds_derive",)
+WINDS_COMMAND_MODULES: tuple[str, ...] = ("winds_derive", "winds_fit")
 
 
 def register(app: typer.Typer) -> None:

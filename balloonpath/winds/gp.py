@@ -31,7 +31,8 @@ from scipy.linalg import cho_solve, solve_triangular
 from balloonpath.errors import DataQualityWarning, FitWarning, InputDataError, input_error
 from balloonpath.fileio import atomic_path
 from balloonpath.geodesy import LocalProjection, normalize_longitude
-from balloonpath.winds.field import Coverage, UniformField, WindField
+from balloonpath.winds.field import Coverage, WindField
+from balloonpath.winds.gp_io import background_spec_of, default_background_loader
 from balloonpath.winds.gp_kernels import (
     BOUNDS,
     GPHyperparameters,
@@ -349,10 +350,28 @@ class GPWindField:
         return out
 
     def sample_grid(self, n_members: int, memory_budget_bytes: int = MEMORY_BUDGET_BYTES) -> CorridorGrid:
-        """The corridor grid used for ``n_members`` members (node budget from the memory budget)."""
+        """The grid used for ``n_members`` members (node budget from the memory budget)."""
+        return self._sample_grid_and_points(n_members, memory_budget_bytes)[0]
+
+    def _sample_grid_and_points(
+        self, n_members: int, memory_budget_bytes: int
+    ) -> tuple[CorridorGrid, np.ndarray | None]:
+        """Grid over the corridor, widened to the posterior points within 2 length scales of it.
+
+        Points farther than that (correlation below exp(-2) = 0.14 per axis at the corridor edge) do not
+        condition the exact-GP samples (slightly wider spread near the edge: the conservative side).
+        """
         lo, hi = self.corridor.box()
+        ell = self.hyperparameters.lengths()
+        use = None
+        if self.posterior is not None:
+            pts = self.posterior.points
+            use = np.all((pts >= lo - 2 * ell) & (pts <= hi + 2 * ell), axis=1)
+            if np.any(use):
+                lo = np.minimum(lo, pts[use].min(axis=0))
+                hi = np.maximum(hi, pts[use].max(axis=0))
         budget = int(min(MAX_NODES, memory_budget_bytes // (8 * max(int(n_members), 1))))
-        return choose_grid(lo, hi, self.hyperparameters.lengths(), max(budget, 16))
+        return choose_grid(lo, hi, ell, max(budget, 16)), use
 
     def sample(
         self, n_members: int, rng: np.random.Generator, memory_budget_bytes: int = MEMORY_BUDGET_BYTES
@@ -366,9 +385,9 @@ class GPWindField:
         n_members = int(n_members)
         if n_members < 1:
             raise input_error(None, "members", f"must be >= 1, got {n_members}", "ask for at least one member")
-        grid = self.sample_grid(n_members, memory_budget_bytes)
+        grid, use = self._sample_grid_and_points(n_members, memory_budget_bytes)
         hp = self.hyperparameters
-        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior)
+        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use)
         dev = np.empty((n_members, grid.size, 2), dtype=np.float32)
         for m0 in range(0, n_members, BATCH_MEMBERS):
             b = min(BATCH_MEMBERS, n_members - m0)
@@ -669,56 +688,6 @@ def _learn(x, r, var, hp0, rng, info):
 
 # ----------------------------------------------------------------------------------------------------------
 # Background description and loading
-
-
-def background_spec_of(background: WindField) -> dict:
-    """How a saved field refers to its background: a uniform wind's values, or a source path and type."""
-    if isinstance(background, UniformField):
-        return {"kind": "uniform", "u_m_s": background.u, "v_m_s": background.v}
-    for attr in ("source_path", "path"):
-        p = getattr(background, attr, None)
-        if p is not None:
-            return {"kind": "file", "path": str(p), "type": type(background).__name__}
-    return {"kind": type(background).__name__}
-
-
-def load_background(source: str | Path, outside: str = "error") -> tuple[WindField, dict]:
-    """A background from a source string, and its description for saved fields.
-
-    ``uniform:U,V`` (m/s), a gridded forecast (``.nc``, ``.grib2``, ``.grb2``, ``.grb``: ``GridField.open``)
-    or sounding CSV files / a folder of them (``sounding_field_from_paths``).
-    """
-    text = str(source)
-    if text.startswith("uniform:"):
-        try:
-            u, v = (float(a) for a in text.split(":", 1)[1].split(","))
-        except ValueError:
-            raise input_error(None, "background", f"'{text}' is not uniform:U,V",
-                              "write e.g. uniform:10,-2 (m/s east, north)") from None
-        return UniformField(u, v), {"kind": "uniform", "u_m_s": u, "v_m_s": v}
-    path = Path(text).resolve()
-    if not path.exists():
-        raise FileNotFoundError(2, "No such file", str(path))
-    spec = {"kind": "file", "path": str(path), "outside": outside}
-    if path.suffix.lower() in (".nc", ".nc4", ".grib2", ".grb2", ".grb", ".grib"):
-        from balloonpath.winds.grid import GridField
-
-        return GridField.open(path, outside=outside), spec
-    from balloonpath.winds.sounding import sounding_field_from_paths
-
-    return sounding_field_from_paths(path, outside=outside), spec
-
-
-def default_background_loader(spec: dict) -> WindField:
-    """Rebuild a background from its stored description (see :func:`load_background`)."""
-    if spec.get("kind") == "uniform":
-        return UniformField(spec["u_m_s"], spec["v_m_s"])
-    if spec.get("kind") == "file":
-        return load_background(spec["path"], spec.get("outside", "error"))[0]
-    raise input_error(
-        None, "background", f"cannot rebuild the background {spec} of this fitted field",
-        "pass background_loader= to load_wind_field, or name the background in the plan's [winds] table",
-    )
 
 
 def load_wind_field(

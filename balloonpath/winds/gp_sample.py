@@ -266,8 +266,15 @@ class GridSampler:
     """Draws posterior deviations of the wind GP on a corridor grid (u and v independent, shared kernel)."""
 
     def __init__(
-        self, grid: CorridorGrid, lengths: np.ndarray, sigma_m_s: float, posterior: Posterior | None
+        self,
+        grid: CorridorGrid,
+        lengths: np.ndarray,
+        sigma_m_s: float,
+        posterior: Posterior | None,
+        use: np.ndarray | None = None,
     ) -> None:
+        """``use`` (bool per posterior point) selects the observations that condition the exact-GP samples
+        (those near the corridor); the DTC path always uses all inducing points."""
         self.grid = grid
         self.lengths = np.asarray(lengths, dtype=float)
         self.sigma = float(sigma_m_s)
@@ -280,6 +287,9 @@ class GridSampler:
         self.s_chol = None
         if posterior is not None and posterior.n_points > 0:
             pts = posterior.points
+            self.use = np.ones(len(pts), bool) if (use is None or posterior.sparse) else np.asarray(use, bool)
+            pts = pts[self.use]
+            self.noise_var = None if posterior.sparse else posterior.noise_var[self.use]
             idx, w, c = interpolation_weights(grid, pts, self.lengths)
             n = idx.shape[0]
             rows = np.repeat(np.arange(n), 16)
@@ -291,7 +301,7 @@ class GridSampler:
                 # Condition the interpolated process on the data with its own kernel k~ (consistent
                 # Matheron update): S = K~(X, X) + Lambda.
                 s_mat = interpolated_kernel(grid, pts, self.lengths, self.sigma, corr)
-                s_mat[np.diag_indices_from(s_mat)] += posterior.noise_var
+                s_mat[np.diag_indices_from(s_mat)] += self.noise_var
                 self.s_chol, _ = robust_cholesky(s_mat, "interpolated kernel matrix for the samples")
         else:
             self.w_obs = None
@@ -311,7 +321,7 @@ class GridSampler:
         if self.w_obs is not None:
             f_at_points = self.w_obs @ g.T  # (n, n_fields)
             if self.s_chol is not None:
-                eps = rng.standard_normal(f_at_points.shape) * np.sqrt(self.posterior.noise_var)[:, None]
+                eps = rng.standard_normal(f_at_points.shape) * np.sqrt(self.noise_var)[:, None]
                 coef = -cho_solve((self.s_chol, True), f_at_points + eps, check_finite=False)
             else:
                 coef = self.posterior.sample_coefficients(f_at_points, rng)  # (n, n_fields)

@@ -33,8 +33,10 @@ References
 from __future__ import annotations
 
 import math
+from array import array
 from collections.abc import Iterator
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -161,7 +163,12 @@ def iter_message_lines(path: str | Path, counts: ReadCounts) -> Iterator[tuple[f
                 continue
             stamp, message = parts[0].strip(), parts[1].strip()
             if len(message) != 28:
-                if len(message) == 14:
+                try:
+                    int(message, 16)
+                    valid = len(message) == 14
+                except ValueError:
+                    valid = False
+                if valid:
                     counts.short_skipped += 1  # DF 0/4/5/11: nothing for the wind triangle
                 else:
                     counts.malformed += 1
@@ -200,9 +207,12 @@ def read_raw_messages(
 
     pipe = pyModeS.PipeDecoder(include_meteo=True)
     craft: dict[str, _Aircraft] = {}
-    out: dict[str, list] = {k: [] for k in (
-        "time_s", "aircraft", "lat", "lon", "alt_ft", "ground_speed_kt", "track_deg", "true_airspeed_kt",
-        "heading_mag", "roll_deg", "track_rate_deg_s", "pair_age_s", "wind_u", "wind_v", "kind")}
+    # Compact row storage (8 bytes per number; aircraft ids are shared string objects).
+    out: dict[str, Any] = {k: array("d") for k in (
+        "time_s", "lat", "lon", "alt_ft", "ground_speed_kt", "track_deg", "true_airspeed_kt",
+        "heading_mag", "roll_deg", "track_rate_deg_s", "pair_age_s", "wind_u", "wind_v")}
+    out["aircraft"] = []
+    out["kind"] = array("b")
     del pair_window_s  # applied in quality control
 
     def emit(icao: str, ac: _Aircraft, t: float, heading: float, tas_piece: tuple[float, float]) -> None:
@@ -327,7 +337,7 @@ def read_raw_messages(
     return _states_from_rows(out, atmosphere, declination_resolution_deg)
 
 
-def _states_from_rows(out: dict[str, list], atmosphere: Atmosphere | None,
+def _states_from_rows(out: dict[str, Any], atmosphere: Atmosphere | None,
                       declination_resolution_deg: float) -> AircraftStates:
     time_s = np.array(out["time_s"], dtype=float)
     lat = np.array(out["lat"], dtype=float)
@@ -344,10 +354,12 @@ def _states_from_rows(out: dict[str, list], atmosphere: Atmosphere | None,
     return AircraftStates.from_columns({
         "time_s": time_s, "aircraft": out["aircraft"], "lat": lat, "lon": lon, "alt_m": alt,
         "ground_speed_m_s": m_s_from_kt(np.array(out["ground_speed_kt"], dtype=float)),
-        "track_deg": out["track_deg"],
+        "track_deg": np.asarray(out["track_deg"], dtype=float),
         "true_airspeed_m_s": m_s_from_kt(np.array(out["true_airspeed_kt"], dtype=float)),
-        "heading_true_deg": heading, "roll_deg": out["roll_deg"], "track_rate_deg_s": out["track_rate_deg_s"],
-        "pair_age_s": out["pair_age_s"], "wind_u": out["wind_u"], "wind_v": out["wind_v"], "kind": kind,
+        "heading_true_deg": heading, "roll_deg": np.asarray(out["roll_deg"], dtype=float),
+        "track_rate_deg_s": np.asarray(out["track_rate_deg_s"], dtype=float),
+        "pair_age_s": np.asarray(out["pair_age_s"], dtype=float), "wind_u": np.asarray(out["wind_u"], dtype=float),
+        "wind_v": np.asarray(out["wind_v"], dtype=float), "kind": kind,
         "source": np.where(kind == KIND_REPORTED, "aircraft-modes-meteo", "aircraft-modes"),
     })
 

@@ -1,0 +1,121 @@
+"""Wiring of the forecast pipeline: the plan's choices reach the models, outputs exist and parse, reruns are
+byte-identical, errors are one line. The numbers themselves are checked in the module tests."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from balloonpath.cli import main
+from balloonpath.forecast import load_winds, run_forecast, write_outputs
+from balloonpath.geodesy import inverse
+from balloonpath.plan import load_plan, schema_markdown
+
+ROOT = Path(__file__).resolve().parents[1]
+COASTAL = ROOT / "scenarios" / "coastal"
+
+
+@pytest.fixture(scope="module")
+def coastal_plan(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("coastal")
+    for f in COASTAL.iterdir():
+        if f.is_file():
+            shutil.copy(f, folder / f.name)
+    text = (folder / "plan.toml").read_text().replace("water = true", "water = false")
+    (folder / "plan.toml").write_text(text)
+    return load_plan(folder / "plan.toml")
+
+
+@pytest.fixture(scope="module")
+def coastal_winds(coastal_plan):
+    return load_winds(coastal_plan)
+
+
+def test_outputs_exist_parse_and_are_byte_identical(coastal_plan, tmp_path):
+    a, b = tmp_path / "a", tmp_path / "b"
+    for out in (a, b):
+        write_outputs(run_forecast(coastal_plan, members=40, seed=3), coastal_plan, out, report=False)
+    names = {"summary.json", "track.csv", "members.csv", "zones.geojson", "flight.kml", "map.png", "profile.png"}
+    assert names <= {p.name for p in a.iterdir()}
+    for name in sorted(names):
+        assert (a / name).read_bytes() == (b / name).read_bytes(), name
+    assert not list(a.glob(".*.part"))
+    s = json.loads((a / "summary.json").read_text())
+    for key in ("launch", "burst", "landing", "flight_time_s", "ensemble", "warnings", "probabilities"):
+        assert key in s
+    assert s["ensemble"]["members"] == 40 and s["ensemble"]["seed"] == 3
+    assert {e["probability"] for e in s["ensemble"]["ellipses"]} == {0.5, 0.9, 0.95}
+    for e in s["ensemble"]["ellipses"]:
+        assert 0 <= e["major_axis_azimuth_deg"] < 180 and e["semi_major_m"] >= e["semi_minor_m"] > 0
+    # the avoid areas of the plan reach the zones
+    assert set(s["probabilities"]["avoid"]) == {"Kestrel Reservoir", "Marrow Quarry restricted area"}
+    # the launch of the plan reaches the summary
+    assert s["launch"]["latitude"] == pytest.approx(coastal_plan.launch.latitude)
+    assert s["launch"]["time"] == "2027-09-03T14:00:00Z"
+    # the nominal burst is the plan's burst altitude (rates mode)
+    assert s["burst"]["altitude_m"] == pytest.approx(27_000.0, abs=0.5)
+    track = (a / "track.csv").read_text().splitlines()
+    assert track[0].startswith("time,latitude,longitude,altitude_m,phase")
+    assert track[-1].endswith("landed")
+
+
+def test_nominal_landing_does_not_depend_on_members_or_seed(coastal_plan, coastal_winds):
+    r1 = run_forecast(coastal_plan, members=5, seed=1, winds=coastal_winds)
+    r2 = run_forecast(coastal_plan, members=60, seed=99, winds=coastal_winds)
+    assert r1.landing.lat[0] == r2.landing.lat[0] and r1.landing.lon[0] == r2.landing.lon[0]
+    assert r1.landing.time_s[0] == r2.landing.time_s[0]
+    # the members do differ between seeds
+    r3 = run_forecast(coastal_plan, members=5, seed=2, winds=coastal_winds)
+    assert not np.array_equal(r1.landing.lat[1:], r3.landing.lat[1:])
+
+
+def test_ensemble_spread_comes_from_the_wind_uncertainty(coastal_plan, coastal_winds):
+    from dataclasses import replace
+
+    with_winds = run_forecast(coastal_plan, members=60, seed=4, winds=coastal_winds)
+    calm_plan = coastal_plan.with_changes(ensemble=replace(coastal_plan.ensemble, wind_uncertainty=False))
+    without = run_forecast(calm_plan, members=60, seed=4, winds=coastal_winds)
+    d_with, _ = inverse(with_winds.landing.lat[0], with_winds.landing.lon[0], with_winds.landing.lat[1:],
+                        with_winds.landing.lon[1:])
+    d_without, _ = inverse(without.landing.lat[0], without.landing.lon[0], without.landing.lat[1:],
+                           without.landing.lon[1:])
+    assert np.median(d_with) > 1.5 * np.median(d_without)
+
+
+def test_cli_forecast_and_bad_plan(tmp_path, capsys, coastal_plan):
+    out = tmp_path / "fc"
+    assert main(["forecast", str(coastal_plan.path), "--out", str(out), "--members", "20", "--no-report"]) == 0
+    assert (out / "summary.json").exists() and not (out / "report.html").exists()
+    bad = tmp_path / "bad.toml"
+    bad.write_text(coastal_plan.path.read_text().replace("latitude = 40.15", "latitude = 123.0"))
+    (tmp_path / "sounding.csv").write_text((COASTAL / "sounding.csv").read_text())
+    (tmp_path / "avoid.geojson").write_text((COASTAL / "avoid.geojson").read_text())
+    capsys.readouterr()
+    out2 = tmp_path / "fc2"
+    assert main(["forecast", str(bad), "--out", str(out2)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("error: bad.toml: [launch] latitude = 123.0 is outside -90..90")
+    assert "Traceback" not in err and len(err.splitlines()) == 1
+    assert not out2.exists()
+
+
+def test_winds_that_do_not_cover_the_flight_fail_cleanly(tmp_path, capsys):
+    lines = (COASTAL / "sounding.csv").read_text().splitlines()
+    # keep the header and the levels below 12 km only
+    kept = [ln for ln in lines if ln.startswith("#") or not ln[0].isdigit() or float(ln.split(",")[0]) < 12_000]
+    (tmp_path / "sounding.csv").write_text("\n".join(kept) + "\n")
+    (tmp_path / "avoid.geojson").write_text((COASTAL / "avoid.geojson").read_text())
+    (tmp_path / "plan.toml").write_text((COASTAL / "plan.toml").read_text())
+    out = tmp_path / "fc"
+    assert main(["forecast", str(tmp_path / "plan.toml"), "--out", str(out), "--members", "5"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "outside the field's coverage" in err and "fix:" in err and len(err.splitlines()) == 1
+    assert not out.exists()
+
+
+def test_plan_reference_doc_is_in_step_with_the_schema():
+    assert (ROOT / "docs" / "plan.md").read_text() == schema_markdown()

@@ -1,0 +1,273 @@
+"""Verification against flown tracks: self-verification, exact shifts, drag calibration, scores.
+
+All places and flights are invented ("Thistlewick Downs" does not exist). Score checks use the closed
+form of the CRPS of a normal forecast ([GneitingRaftery2007], from memory) and its definition as an
+integral, evaluated independently with scipy.integrate.quad.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import numpy as np
+import pytest
+from scipy import integrate, stats
+
+from balloonpath.ensemble import State, integrate as fly
+from balloonpath.errors import InputDataError
+from balloonpath.flight.descent import parachute_descent_rate
+from balloonpath.flight.vertical import vertical_params_from_plan
+from balloonpath.forecast import fly_nominal, load_winds
+from balloonpath.geodesy import forward, inverse
+from balloonpath.plan import load_plan
+from balloonpath.terrain import terrain_from_plan
+from balloonpath.track import FlownTrack
+from balloonpath.verify import (
+    crps_ensemble,
+    crps_gaussian,
+    energy_score,
+    find_flights,
+    inside_ellipses,
+    mahalanobis_rank,
+    read_flown_track,
+    verify_flight,
+    verify_many,
+    write_track_csv,
+    write_verification,
+)
+from balloonpath.winds.field import MeanMemberWinds
+from balloonpath.winds.synthetic import SyntheticAtmosphereField, write_sounding_csv
+from balloonpath.zones import chi2_scale, ellipse_from_points
+
+T0 = 1_810_000_000.0  # 2027-05-10T...Z, invented flight day
+LAT0, LON0, ELEV = 51.20, -1.75, 150.0
+
+RATES = """\
+[launch]
+latitude = 51.20
+longitude = -1.75
+time = {time}
+elevation_m = 150.0
+site_name = "Thistlewick Downs"
+
+[rates]
+ascent_m_s = 5.0
+burst_altitude_m = 24000.0
+descent_sea_level_m_s = 5.0
+
+[winds]
+sounding = "sounding.csv"
+
+[ensemble]
+members = 60
+seed = 3
+time_step_s = 10.0
+"""
+
+PHYSICS = """\
+[launch]
+latitude = 51.20
+longitude = -1.75
+time = {time}
+elevation_m = 150.0
+
+[balloon]
+envelope_mass_kg = 0.6
+burst_diameter_m = 6.0
+neck_lift_kg = 1.9
+drag_coefficient = 0.30
+
+[payload]
+mass_kg = 1.0
+
+[parachute]
+diameter_m = 1.0
+drag_coefficient = 0.75
+
+[winds]
+sounding = "sounding.csv"
+
+[ensemble]
+members = 40
+seed = 5
+"""
+
+
+def _plan(tmp_path: Path, text: str):
+    from balloonpath.timeutil import iso_from_posix
+
+    truth = SyntheticAtmosphereField(LAT0, LON0, T0, seed=4, jet_speed_m_s=30.0, ground_m=ELEV)
+    write_sounding_csv(truth, LAT0, LON0, T0, tmp_path / "sounding.csv")
+    path = tmp_path / "plan.toml"
+    path.write_text(text.format(time=iso_from_posix(T0)), encoding="utf-8")
+    return load_plan(path)
+
+
+def _nominal_track(plan, winds) -> FlownTrack:
+    traj, _ = fly_nominal(plan, winds)
+    tr = traj.tracks
+    keep = np.isfinite(tr["time_s"][0])
+    return FlownTrack(tr["time_s"][0][keep], tr["lat"][0][keep], tr["lon"][0][keep], tr["alt_m"][0][keep],
+                      "nominal run")
+
+
+# ------------------------------------------------------------------------------ self-verification
+def test_nominal_track_verifies_with_zero_error_and_shift_is_exact(tmp_path: Path) -> None:
+    plan = _plan(tmp_path, RATES)
+    winds = load_winds(plan)
+    flown = _nominal_track(plan, winds)
+    # Through the CSV reader too (times written to the microsecond, positions to 1e-7 degree ~ 1 cm).
+    write_track_csv(flown, tmp_path / "flown.csv")
+    flown = read_flown_track(tmp_path / "flown.csv")
+    ver, result, zones = verify_flight(plan, flown, members=40, winds=winds)
+    assert ver.landing_error_m < 0.05
+    assert abs(ver.burst_altitude_error_m) < 0.01
+    assert abs(ver.burst_time_error_s) < 1e-3
+    assert abs(ver.landing_time_error_s) < 1e-3
+    assert np.nanmax(ver.error_distance_m) < 0.05
+    both = np.isfinite(ver.ascent_speed_flown_m_s)
+    assert both.sum() >= 5
+    np.testing.assert_allclose(ver.ascent_speed_flown_m_s[both], ver.ascent_speed_forecast_m_s[both], atol=1e-6)
+    # Rates mode: the calibration gives back the plan's rates (5.0 m/s up, 5.0 m/s at sea level down).
+    cal = ver.calibration.values
+    assert cal["ascent_m_s"]["value"] == pytest.approx(5.0, rel=1e-3)
+    assert cal["descent_sea_level_m_s"]["value"] == pytest.approx(5.0, rel=0.01)
+    assert cal["burst_altitude_m"]["value"] == pytest.approx(24_000.0, abs=0.01)
+
+    # A copy shifted 3.2 km toward 65 degrees (every point along the geodesic) lands exactly there.
+    lat, lon = forward(flown.lat, flown.lon, 65.0, 3_200.0)
+    shifted = dataclasses.replace(flown, lat=np.asarray(lat), lon=np.asarray(lon), source="shifted")
+    ver2, _, _ = verify_flight(plan, shifted, members=40, winds=winds)
+    assert ver2.landing_error_m == pytest.approx(3_200.0, abs=0.05)
+    # The azimuth at the forecast landing equals the shift's azimuth there (same geodesic).
+    d, az = inverse(ver2.forecast_landing[0], ver2.forecast_landing[1], lat[-1], lon[-1])
+    assert ver2.landing_error_bearing_deg == pytest.approx(float(az), abs=1e-6)
+    assert float(az) == pytest.approx(65.0, abs=1e-6)
+    assert np.nanmax(np.abs(ver2.error_distance_m - 3_200.0)) < 0.5
+
+    # A copy delayed by 5 minutes: burst and landing times late by exactly 300 s.
+    late = dataclasses.replace(flown, time_s=flown.time_s + 300.0)
+    ver3, _, _ = verify_flight(plan, late, members=40, winds=winds, launch_time_s=float(flown.time_s[0]))
+    assert ver3.burst_time_error_s == pytest.approx(300.0, abs=1e-6)
+    assert ver3.landing_time_error_s == pytest.approx(300.0, abs=1e-6)
+
+    files = write_verification(ver, result, zones, flown, tmp_path / "out")
+    doc = json.loads((tmp_path / "out" / "verify.json").read_text())
+    assert doc["landing"]["error_m"] < 0.05
+    assert doc["ensemble"]["scores_reference"] == "GneitingRaftery2007"
+    assert {f.name for f in files} == {"verify.json", "verify.txt", "verify.png"}
+    assert "[rates]" in (tmp_path / "out" / "verify.txt").read_text()
+
+
+# --------------------------------------------------------------------------------- calibration
+def test_drag_calibration_recovers_known_coefficients(tmp_path: Path) -> None:
+    plan = _plan(tmp_path, PHYSICS)
+    winds = load_winds(plan)
+    params = vertical_params_from_plan(plan, winds.atmosphere)
+    cd_true, chute_true = 0.38, 0.95  # the "real" balloon differs from the plan's 0.30 and 0.75
+    v0 = float(parachute_descent_rate(plan.payload.mass_kg, plan.parachute.diameter_m, chute_true))
+    truth = dataclasses.replace(params, ascent_drag_coefficient=np.array([cd_true]),
+                                descent_sea_level_m_s=np.array([v0]))
+    state = State.at_launch(LAT0, LON0, ELEV, T0, 1)
+    traj = fly(state, truth, MeanMemberWinds(winds.field), terrain_from_plan(plan), winds.atmosphere, dt_s=5.0)
+    tr = traj.tracks
+    keep = np.isfinite(tr["time_s"][0])
+    flown = FlownTrack(tr["time_s"][0][keep], tr["lat"][0][keep], tr["lon"][0][keep], tr["alt_m"][0][keep], "synthetic")
+    ver, _, _ = verify_flight(plan, flown, members=20, winds=winds)
+    cal = ver.calibration.values
+    assert cal["ascent_drag_coefficient"]["value"] == pytest.approx(cd_true, rel=0.05)
+    assert cal["parachute_drag_coefficient"]["value"] == pytest.approx(chute_true, rel=0.05)
+    assert cal["ascent_drag_coefficient"]["plan_value"] == pytest.approx(0.30)
+    fitted = cal["ascent_drag_coefficient"]["value"]
+    assert f"[balloon]\ndrag_coefficient = {fitted:.3f}" in ver.calibration.plan_lines
+    # The slower real balloon bursts later than forecast.
+    assert ver.burst_time_error_s > 0
+
+
+# ------------------------------------------------------------------------------ zones and rank
+def test_rank_and_zone_membership_on_a_constructed_ensemble() -> None:
+    # 4 points on each of K circles of radius r_j (angles 0, 90, 180, 270 deg): mean 0, covariance
+    # diag(s^2, s^2) with s^2 = 2 sum r_j^2 / (4K - 1), so a point at radius r has Mahalanobis radius r / s.
+    k = 50
+    radii = np.arange(1, k + 1) * 100.0
+    ang = np.radians([0.0, 90.0, 180.0, 270.0])
+    x = (radii[:, None] * np.sin(ang)[None, :]).ravel()
+    y = (radii[:, None] * np.cos(ang)[None, :]).ravel()
+    s = math.sqrt(2.0 * np.sum(radii**2) / (4 * k - 1))
+    # Truth between circles 20 and 21, at 45 degrees: exactly 80 of 200 members are closer.
+    r_truth = 2_050.0
+    tx, ty = r_truth * math.sin(math.radians(45)), r_truth * math.cos(math.radians(45))
+    assert mahalanobis_rank(np.column_stack([x, y]), [tx, ty]) == pytest.approx(80 / 200, abs=1e-12)
+    assert mahalanobis_rank(np.column_stack([x, y]), [0.0, 0.0]) == 0.0
+    assert mahalanobis_rank(np.column_stack([x, y]), [1e6, 0.0]) == 1.0
+    # The ellipses of zones.py are circles of radius sqrt(chi2_2(p)) s ([Wang2015]).
+    ellipses = [ellipse_from_points(x, y, p) for p in (0.5, 0.9, 0.95)]
+    m = r_truth / s
+    expect = {p: m <= chi2_scale(p) for p in (0.5, 0.9, 0.95)}
+    assert inside_ellipses(ellipses, tx, ty) == expect
+    assert expect == {0.5: False, 0.9: True, 0.95: True}  # the construction puts it between the two
+
+
+def test_rank_is_uniform_for_a_calibrated_gaussian_ensemble() -> None:
+    rng = np.random.default_rng(11)
+    cov = np.array([[4.0, 1.5], [1.5, 2.0]]) * 1e6
+    ranks = [mahalanobis_rank(rng.multivariate_normal([0, 0], cov, 300), rng.multivariate_normal([0, 0], cov))
+             for _ in range(400)]
+    # Kolmogorov-Smirnov against U(0, 1) (scipy.stats.kstest); p > 0.01 for a calibrated ensemble.
+    assert stats.kstest(ranks, "uniform").pvalue > 0.01
+
+
+# ------------------------------------------------------------------------------------------ CRPS
+def test_crps_gaussian_closed_form_matches_the_integral_definition() -> None:
+    # CRPS(F, y) = integral (F(x) - 1{x >= y})^2 dx ([GneitingRaftery2007]); quad evaluates it.
+    for mu, sd, y in ((0.0, 1.0, 0.3), (2.0, 3.0, -4.0), (10.0, 0.5, 10.0)):
+        def sq(x: float) -> float:
+            return (stats.norm.cdf(x, mu, sd) - (1.0 if x >= y else 0.0)) ** 2
+
+        ref = integrate.quad(sq, mu - 12 * sd, y, limit=200)[0] + integrate.quad(sq, y, mu + 12 * sd, limit=200)[0]
+        assert float(crps_gaussian(mu, sd, y)) == pytest.approx(ref, rel=1e-7)
+
+
+def test_crps_ensemble_matches_gaussian_and_energy_score_reduces_to_crps() -> None:
+    rng = np.random.default_rng(5)
+    sample = rng.normal(1.0, 2.0, 200_000)
+    for y in (-1.0, 1.0, 4.0):
+        # Monte Carlo error of the kernel form at N = 2e5 is about 1e-3 of sd.
+        assert float(crps_ensemble(sample, y)) == pytest.approx(float(crps_gaussian(1.0, 2.0, y)), abs=8e-3)
+    # A one-member ensemble: CRPS = |x - y|; the energy score of points on a line = CRPS of the line.
+    assert float(crps_ensemble([3.0], 5.5)) == pytest.approx(2.5)
+    pts = rng.normal(0.0, 1.0, 300)
+    assert energy_score(np.column_stack([pts, np.zeros_like(pts)]), [0.7, 0.0]) == pytest.approx(
+        float(crps_ensemble(pts, 0.7)), rel=1e-10)
+    assert energy_score(np.column_stack([pts, pts]) / math.sqrt(2), [0.5, 0.5]) == pytest.approx(
+        float(crps_ensemble(pts, 1 / math.sqrt(2))), rel=1e-10)
+
+
+# ----------------------------------------------------------------------------- reading and many
+def test_track_reader_and_many_folder(tmp_path: Path) -> None:
+    bad = tmp_path / "bad.csv"
+    bad.write_text("time,latitude,longitude\n2027-05-14T12:00:00Z,1,2\n", encoding="utf-8")
+    with pytest.raises(InputDataError, match=r"bad\.csv: header: lacks column\(s\) altitude_m; fix"):
+        read_flown_track(bad)
+    root = tmp_path / "season"
+    (root / "flight-a").mkdir(parents=True)
+    (root / "empty").mkdir()
+    plan = _plan(root / "flight-a", RATES)
+    write_track_csv(_nominal_track(plan, load_winds(plan)), root / "flight-a" / "flown.csv")
+    with pytest.warns(Warning, match="empty: skipped"):
+        cases = find_flights(root)
+    assert [c.name for c in cases] == ["flight-a"]
+    with pytest.warns(Warning, match="empty: skipped"):
+        many = verify_many(root, tmp_path / "out", members=30)
+    agg = many.aggregate
+    assert agg["flights"] == 1 and agg["median_landing_error_m"] < 0.05
+    assert (tmp_path / "out" / "many.csv").read_text().startswith("flight,landing_error_km")
+    with pytest.raises(InputDataError, match="contain no flight"):
+        find_flights(root / "empty")
