@@ -41,12 +41,12 @@ import numpy as np
 from scipy.special import ndtr, ndtri
 from scipy.stats import theilslopes
 
-from balloonpath.atmosphere import SEA_LEVEL_DENSITY, Atmosphere
+from balloonpath.atmosphere import Atmosphere
 from balloonpath.ensemble import State, Trajectories, draw_member_factors, integrate
 from balloonpath.errors import PhysicsWarning, WarningLog, input_error, recording_warnings
 from balloonpath.flight.phases import ASCENT, DESCENT, FLOAT, LANDED, PHASE_NAMES
 from balloonpath.flight.vertical import VerticalParams, perturbed, vertical_params_from_plan
-from balloonpath.geodesy import LocalProjection, inverse
+from balloonpath.geodesy import inverse, normalize_longitude, radii_of_curvature
 from balloonpath.plan import Plan
 from balloonpath.result import ForecastResult, Points, Track
 from balloonpath.terrain import terrain_from_plan
@@ -489,17 +489,20 @@ def wind_observations_from_track(
         tt = t[sl]
         if tt[-1] - tt[0] <= 0.0 or tt[-1] - tt[0] > 3.0 * window_s:
             continue  # a gap: the drift over it is not one wind
-        proj = LocalProjection(float(np.mean(lat[sl])), float(np.mean(lon[sl])))
-        x, y = proj.to_local(lat[sl], lon[sl])
-        u, _, su, _ = robust_line(tt, np.asarray(x), s_eff)
-        v, _, sv, _ = robust_line(tt, np.asarray(y), s_eff)
+        # local east/north metres about the window's first fix (windows span < 20 km: the tangent-plane
+        # error is below 1e-5 relative)
+        lat0, lon0 = float(lat[sl][0]), float(lon[sl][0])
+        r_m, r_n = radii_of_curvature(lat0)
+        x = np.radians(normalize_longitude(lon[sl] - lon0)) * float(r_n) * math.cos(math.radians(lat0))
+        y = np.radians(lat[sl] - lat0) * float(r_m)
+        u, _, su, _ = robust_line(tt, x, s_eff)
+        v, _, sv, _ = robust_line(tt, y, s_eff)
         dz = float(np.ptp(z[sl]))
         rep2 = (shear_s * dz) ** 2 / 12.0
         sig = math.sqrt(max(su, sv) ** 2 + rep2 + WIND_SIGMA_FLOOR_M_S**2)
-        lat_m, lon_m = proj.to_geographic(0.0, 0.0)
         out["time_s"].append(float(np.mean(tt)))
-        out["lat"].append(float(lat_m))
-        out["lon"].append(float(lon_m))
+        out["lat"].append(float(np.mean(lat[sl])))
+        out["lon"].append(float(normalize_longitude(lon0 + np.mean(normalize_longitude(lon[sl] - lon0)))))
         out["alt_m"].append(float(np.mean(z[sl])))
         out["u"].append(u)
         out["v"].append(v)
@@ -944,7 +947,6 @@ def rewrite_outputs(update: ChaseUpdate, out_dir: str | Path) -> list[Path]:
     """Write chase.geojson, chase.kml and chase.json atomically (a map viewer never sees half a file)."""
     import json
 
-    from balloonpath.export.chase_export import chase_geojson, chase_kml
     from balloonpath.export.geojson import write_geojson
     from balloonpath.fileio import atomic_write_text
 
@@ -957,9 +959,275 @@ def rewrite_outputs(update: ChaseUpdate, out_dir: str | Path) -> list[Path]:
     ]
 
 
+# ---------------------------------------------------------------------------------------- map files
+def _c(lon: float, lat: float, alt: float | None = None) -> list[float]:
+    out = [round(float(lon), 6) + 0.0, round(float(lat), 6) + 0.0]
+    if alt is not None and math.isfinite(alt):
+        out.append(round(float(alt), 1) + 0.0)
+    return out
+
+
+def _line(lons: np.ndarray, lats: np.ndarray, alts: np.ndarray | None) -> dict[str, Any] | None:
+    from balloonpath.export.geojson import split_antimeridian
+
+    parts = [p for p in split_antimeridian(lons, lats, alts) if len(p) >= 2]
+    if not parts:
+        return None
+    if len(parts) == 1:
+        return {"type": "LineString", "coordinates": parts[0]}
+    return {"type": "MultiLineString", "coordinates": parts}
+
+
+def _num(x: float | None, nd: int) -> float | None:
+    return None if x is None or not math.isfinite(float(x)) else round(float(x), nd) + 0.0
+
+
+def chase_geojson(update: ChaseUpdate) -> dict[str, Any]:
+    """The chase map as an RFC 7946 FeatureCollection.
+
+    Features (``kind``): ``flown_track``, ``balloon`` (latest fix), ``predicted_track`` (remaining nominal
+    track), ``predicted_landing`` (mean of the members), ``landing_ellipse`` (50/90/95 %),
+    ``landing_region`` (90 %), ``crew`` and ``crew_to_landing`` when the crew position is known.
+    """
+    from balloonpath.export.geojson import polygon_geometry
+    from balloonpath.timeutil import iso_from_posix
+
+    s, z, res = update.state, update.zones, update.result
+    feats: list[dict[str, Any]] = []
+
+    def add(geom: dict[str, Any] | None, props: dict[str, Any]) -> None:
+        if geom is not None:
+            feats.append({"type": "Feature", "geometry": geom, "properties": props})
+
+    if update.track is not None and len(update.track) >= 2:
+        tr = update.track
+        add(_line(tr.lon, tr.lat, tr.alt_m), {"kind": "flown_track", "name": "Flown track", "fixes": len(tr)})
+    add({"type": "Point", "coordinates": _c(s.lon, s.lat, s.alt_m)}, {
+        "kind": "balloon", "name": f"Balloon ({s.phase_name})", "time": iso_from_posix(s.time_s),
+        "phase": s.phase_name, "altitude_m": _num(s.alt_m, 1),
+        "vertical_speed_m_s": _num(s.vertical_speed_m_s, 2)})
+    nt = res.nominal
+    add(_line(nt.lon, nt.lat, nt.alt_m), {"kind": "predicted_track", "name": "Predicted track (nominal)"})
+    add({"type": "Point", "coordinates": _c(update.landing_lon, update.landing_lat)}, {
+        "kind": "predicted_landing", "name": "Predicted landing",
+        "time": iso_from_posix(update.landing_time_s) if math.isfinite(update.landing_time_s) else None,
+        "minutes_left": _num(update.time_left_s / 60.0, 1),
+        "landing_time_p05": iso_from_posix(z.landing_time_p05) if math.isfinite(z.landing_time_p05) else None,
+        "landing_time_p95": iso_from_posix(z.landing_time_p95) if math.isfinite(z.landing_time_p95) else None})
+    for e, ring in zip(z.ellipses, z.ellipse_rings, strict=True):
+        if e.area_m2 > 0:
+            add(polygon_geometry([ring]), {
+                "kind": "landing_ellipse", "name": f"Landing {e.probability:.0%} ellipse",
+                "probability": _num(e.probability, 4), "semi_major_m": _num(e.semi_major_m, 1),
+                "semi_minor_m": _num(e.semi_minor_m, 1), "major_axis_azimuth_deg": _num(e.major_axis_azimuth_deg, 1)})
+    add(polygon_geometry(z.region_90_rings), {
+        "kind": "landing_region", "name": "Landing 90% region", "probability": 0.9,
+        "area_km2": _num(z.region_90_area_m2 / 1e6, 3)})
+    if update.crew_lat is not None and update.crew_lon is not None:
+        add({"type": "Point", "coordinates": _c(update.crew_lon, update.crew_lat)}, {
+            "kind": "crew", "name": "Crew", "distance_km": _num((update.crew_distance_m or 0.0) / 1e3, 2),
+            "bearing_deg": _num(update.crew_bearing_deg, 1)})
+        add(_line(np.array([update.crew_lon, update.landing_lon]), np.array([update.crew_lat, update.landing_lat]),
+                  None), {"kind": "crew_to_landing", "name": "Crew to predicted landing"})
+    return {"type": "FeatureCollection", "features": feats}
+
+
+def chase_kml(update: ChaseUpdate) -> str:
+    """The chase map as KML 2.2 text: folders Balloon, Prediction, Landing zones, Crew (deterministic)."""
+    import simplekml
+
+    from balloonpath.export.geojson import polygon_geometry
+    from balloonpath.export.kml import DISCLAIMER, _renumber_ids, kml_color
+    from balloonpath.plots import PALETTE
+    from balloonpath.timeutil import iso_from_posix
+
+    s, z, res = update.state, update.zones, update.result
+    kml = simplekml.Kml(name="balloonpath chase")
+    kml.document.description = (
+        f"Re-prediction from the fix of {iso_from_posix(s.time_s)} ({s.phase_name}, {s.alt_m:.0f} m). "
+        + DISCLAIMER)
+
+    def style(color: str, width: float, fill: float | None = None, icon: float | None = None) -> simplekml.Style:
+        st = simplekml.Style()
+        st.linestyle.color = kml_color(color)
+        st.linestyle.width = width
+        if fill is None:
+            st.polystyle.fill = 0
+        else:
+            st.polystyle.color = kml_color(color, fill)
+        if icon is not None:
+            st.iconstyle.color = kml_color(color)
+            st.iconstyle.scale = icon
+        return st
+
+    def coords(lons: np.ndarray, lats: np.ndarray, alts: np.ndarray | None = None) -> list[tuple[float, ...]]:
+        ok = np.isfinite(lons) & np.isfinite(lats)
+        if alts is None:
+            return [(round(float(a), 6), round(float(b), 6)) for a, b in zip(lons[ok], lats[ok], strict=True)]
+        return [(round(float(a), 6), round(float(b), 6), round(float(c), 1))
+                for a, b, c in zip(lons[ok], lats[ok], alts[ok], strict=True)]
+
+    fb = kml.newfolder(name="Balloon")
+    if update.track is not None and len(update.track) >= 2:
+        ln = fb.newlinestring(name="Flown track")
+        ln.coords = coords(update.track.lon, update.track.lat, update.track.alt_m)
+        ln.altitudemode = simplekml.AltitudeMode.absolute
+        ln.style = style(PALETTE["burst"], 3)
+    pt = fb.newpoint(name=f"Balloon {s.alt_m:.0f} m", coords=[(round(s.lon, 6), round(s.lat, 6), round(s.alt_m, 1))])
+    pt.altitudemode = simplekml.AltitudeMode.absolute
+    pt.description = (f"{iso_from_posix(s.time_s)}: {s.phase_name}, {s.alt_m:.0f} m, vertical speed "
+                      f"{s.vertical_speed_m_s:+.1f} m/s")
+    pt.style = style(PALETTE["burst"], 1, icon=1.2)
+    fp = kml.newfolder(name="Prediction")
+    nt = res.nominal
+    if len(nt) >= 2:
+        ln = fp.newlinestring(name="Predicted track")
+        ln.coords = coords(nt.lon, nt.lat, nt.alt_m)
+        ln.altitudemode = simplekml.AltitudeMode.absolute
+        ln.style = style(PALETTE["track"], 3)
+    pt = fp.newpoint(name="Predicted landing", coords=[(round(update.landing_lon, 6), round(update.landing_lat, 6))])
+    when = iso_from_posix(update.landing_time_s) if math.isfinite(update.landing_time_s) else "n/a"
+    pt.description = f"Landing about {when} ({update.time_left_s / 60:.0f} min left); 95 % zone " \
+                     f"{update.zone_95_km:.1f} km (semi-major axis)."
+    pt.style = style(PALETTE["landing"], 1, icon=1.3)
+    fz = kml.newfolder(name="Landing zones")
+    rings = [(f"Landing {e.probability:.0%} ellipse", [r]) for e, r in zip(z.ellipses, z.ellipse_rings, strict=True)
+             if e.area_m2 > 0]
+    if z.region_90_rings:
+        rings.append(("Landing 90% region", list(z.region_90_rings)))
+    for name, rr in rings:
+        geom = polygon_geometry(rr)
+        if geom is None:
+            continue
+        parts = [geom["coordinates"]] if geom["type"] == "Polygon" else geom["coordinates"]
+        for part in parts:
+            pol = fz.newpolygon(name=name)
+            pol.outerboundaryis = [tuple(c) for c in part[0]]
+            pol.altitudemode = simplekml.AltitudeMode.clamptoground
+            pol.tessellate = 1
+            pol.style = style(PALETTE["landing_ellipse"], 2, fill=0.1)
+    if update.crew_lat is not None and update.crew_lon is not None:
+        fc = kml.newfolder(name="Crew")
+        pt = fc.newpoint(name="Crew", coords=[(round(update.crew_lon, 6), round(update.crew_lat, 6))])
+        pt.description = (f"{(update.crew_distance_m or 0.0) / 1e3:.1f} km to the predicted landing, bearing "
+                          f"{update.crew_bearing_deg or 0.0:.0f} deg")
+        pt.style = style(PALETTE["launch"], 1, icon=1.1)
+        ln = fc.newlinestring(name="Crew to predicted landing")
+        ln.coords = [(round(update.crew_lon, 6), round(update.crew_lat, 6)),
+                     (round(update.landing_lon, 6), round(update.landing_lat, 6))]
+        ln.tessellate = 1
+        ln.style = style(PALETTE["launch"], 2)
+    return _renumber_ids(kml.kml())
+
+
+
+
+# ---------------------------------------------------------------------------------------- live feeds
+def parse_position(text: str) -> tuple[float, float]:
+    """``"LAT,LON"`` in decimal degrees; a sign, or a hemisphere letter N/S/E/W after the number.
+
+    ``"-33.85,151.2"``, ``"33.85S,151.2E"``, ``"33.85 S, 151.2 E"`` and a Unicode minus all work.
+
+    Raises
+    ------
+    InputDataError
+        If the text is not two numbers in range.
+    """
+    raw = text.replace("\u2212", "-").replace(";", ",").strip()
+    parts = [p.strip() for p in raw.split(",")]
+    fix = "write --crew LAT,LON in degrees, e.g. --crew=-33.85,151.2 or --crew 33.85S,151.2E"
+    if len(parts) != 2:
+        raise input_error(None, "--crew", f"'{text}' is not LAT,LON", fix)
+    values = []
+    for part, (pos, neg) in zip(parts, (("N", "S"), ("E", "W")), strict=True):
+        sign = 1.0
+        up = part.upper().replace(" ", "")
+        if up.endswith((pos, neg)):
+            sign = -1.0 if up.endswith(neg) else 1.0
+            up = up[:-1]
+        try:
+            values.append(sign * float(up))
+        except ValueError:
+            raise input_error(None, "--crew", f"'{part}' is not a number", fix) from None
+    lat, lon = values
+    if not (-90.0 <= lat <= 90.0 and -180.0 <= lon <= 360.0):
+        raise input_error(None, "--crew", f"{lat}, {lon} is out of range", fix)
+    return lat, float(normalize_longitude(lon))
+
+
+class ReplayFeed:
+    """A recorded flight released fix by fix as if received live (for practice and tests).
+
+    Fix i is released at wall time start + (t_i - t_0) / speed (``speed`` 0: no waiting). An update is
+    due when the newest released fix is at least ``every_s`` seconds of flight time after the last
+    update's (the last fix always gives one). Iterating yields ``(track so far, report)``.
+    """
+
+    def __init__(self, path: str | Path, callsign: str | None = None, speed: float = 60.0,
+                 every_s: float = 60.0, sleep: Any = _time.sleep, clock: Any = _time.monotonic) -> None:
+        from balloonpath.telemetry import read_track
+
+        self.track, self.report = read_track(path, callsign=callsign)
+        self.speed = float(speed)
+        self.every_s = float(every_s)
+        self._sleep, self._clock = sleep, clock
+
+    def __iter__(self) -> Any:
+        t = np.asarray(self.track.time_s)
+        start = self._clock()
+        last = -math.inf
+        for i in range(t.size):
+            if t[i] - last < self.every_s and i != t.size - 1:
+                continue
+            if self.speed > 0:
+                wait = start + (t[i] - t[0]) / self.speed - self._clock()
+                if wait > 0:
+                    self._sleep(wait)
+            last = float(t[i])
+            yield truncate_track(self.track, last), self.report
+
+
+class FollowFeed:
+    """Watch a growing telemetry file; yield ``(track, report)`` when new fixes make an update due.
+
+    Polls every ``poll_s`` seconds (no extra dependencies). An update is due when the newest fix is at
+    least ``every_s`` seconds of flight time after the last update's. Stops after ``idle_timeout_s``
+    seconds without new fixes (None: never).
+    """
+
+    def __init__(self, path: str | Path, callsign: str | None = None, every_s: float = 30.0,
+                 poll_s: float = 2.0, idle_timeout_s: float | None = None, sleep: Any = _time.sleep,
+                 clock: Any = _time.monotonic) -> None:
+        from balloonpath.telemetry import TrackFollower
+
+        self.follower = TrackFollower(path, callsign=callsign)
+        self.every_s = float(every_s)
+        self.poll_s = float(poll_s)
+        self.idle_timeout_s = idle_timeout_s
+        self._sleep, self._clock = sleep, clock
+
+    def __iter__(self) -> Any:
+        last = -math.inf
+        idle_since = self._clock()
+        while True:
+            grew = self.follower.poll()
+            track = self.follower.track
+            if grew:
+                idle_since = self._clock()
+            if track is not None and float(track.time_s[-1]) - last >= self.every_s:
+                last = float(track.time_s[-1])
+                yield track, self.follower.read_report
+                continue
+            if self.idle_timeout_s is not None and self._clock() - idle_since > self.idle_timeout_s:
+                if track is not None and float(track.time_s[-1]) > last:
+                    yield track, self.follower.read_report
+                return
+            self._sleep(self.poll_s)
+
+
 __all__ = [
     "ChaseSession", "ChaseUpdate", "FlightState", "condition_field", "crew_position_at",
     "estimate_flight_state", "member_parameters", "preflight_observations", "prelaunch_state", "repredict",
     "rewrite_outputs", "robust_line", "truncate_track", "wind_observations_from_track",
-    "SEA_LEVEL_DENSITY",
+    "chase_geojson", "chase_kml", "parse_position", "ReplayFeed", "FollowFeed",
 ]

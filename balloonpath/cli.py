@@ -20,6 +20,8 @@ COMMAND_MODULES: tuple[str, ...] = (
     "lift",
     "forecast",
     "checklist",
+    "verify",
+    "chase",
 )
 
 app = typer.Typer(

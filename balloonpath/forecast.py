@@ -63,7 +63,7 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
     if w.field is not None:
         field = gp.load_wind_field(w.field)
         info["sources"].append(f"fitted field {w.field.name}")
-        info["gp"] = field.describe() if hasattr(field, "describe") else None
+        info["gp"] = getattr(field, "info", None)
         info["observations"] = int(getattr(field, "n_observations", 0))
         return LoadedWinds(field, atmosphere, info)
 
@@ -108,7 +108,7 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
     field = gp.fit_wind_field(
         obs, background, center=(plan.launch.latitude, plan.launch.longitude), lead_time_h=lead_h,
     )
-    info["gp"] = field.describe() if hasattr(field, "describe") else None
+    info["gp"] = getattr(field, "info", None)
     return LoadedWinds(field, atmosphere, info, obs if len(obs) else None)
 
 

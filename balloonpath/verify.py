@@ -31,7 +31,6 @@ References
 
 from __future__ import annotations
 
-import csv
 import dataclasses
 import json
 import math
@@ -48,7 +47,7 @@ from balloonpath.errors import DataQualityWarning, FitWarning, InputDataError, i
 from balloonpath.fileio import atomic_write_text
 from balloonpath.geodesy import inverse
 from balloonpath.result import ForecastResult
-from balloonpath.timeutil import iso_from_posix, parse_iso
+from balloonpath.timeutil import iso_from_posix
 from balloonpath.track import FlownTrack
 
 #: Probabilities of the zones whose coverage is reported.
@@ -193,59 +192,29 @@ def inside_ellipses(ellipses: Any, x: float, y: float) -> dict[float, bool]:
 
 # ----------------------------------------------------------------------------------- track reading
 def read_flown_track(path: str | Path) -> FlownTrack:
-    """Read a flown track: through ``balloonpath.telemetry.read_track`` when it exists, else our CSV.
+    """Read a flown track (CSV ``time,latitude,longitude,altitude_m``, APRS log or DWD radiosonde file).
 
-    The CSV has a header ``time,latitude,longitude,altitude_m`` (ISO 8601 UTC times, degrees, metres
-    above mean sea level); ``#`` lines are comments.
+    Thin wrapper of :func:`balloonpath.telemetry.read_track` (format detection, skipped-line counts);
+    lines the reader skipped are reported as one :class:`~balloonpath.errors.DataQualityWarning`.
     """
-    try:
-        from balloonpath import telemetry  # type: ignore[attr-defined]
-    except ImportError:
-        telemetry = None
-    if telemetry is not None and hasattr(telemetry, "read_track"):
-        track, _report = telemetry.read_track(path)
-        return track
-    return _read_track_csv(Path(path))
+    from balloonpath.telemetry import read_track
 
-
-def _read_track_csv(path: Path) -> FlownTrack:
-    if not path.exists():
-        raise input_error(path, "file", "does not exist", "check the path to the flown track")
-    rows = [line for line in path.read_text(encoding="utf-8").splitlines()
-            if line.strip() and not line.lstrip().startswith("#")]
-    if not rows:
-        raise input_error(path, "file", "is empty", "give a CSV with time,latitude,longitude,altitude_m")
-    header = [h.strip().lower() for h in next(csv.reader([rows[0]]))]
-    need = ("time", "latitude", "longitude", "altitude_m")
-    missing = [c for c in need if c not in header]
-    if missing:
-        raise input_error(path, "header", f"lacks column(s) {', '.join(missing)}",
-                          "write a header time,latitude,longitude,altitude_m")
-    col = {c: header.index(c) for c in need}
-    t, la, lo, z = [], [], [], []
-    for k, row in enumerate(csv.reader(rows[1:]), start=2):
-        try:
-            t.append(parse_iso(row[col["time"]].strip()))
-            la.append(float(row[col["latitude"]]))
-            lo.append(float(row[col["longitude"]]))
-            z.append(float(row[col["altitude_m"]]))
-        except (ValueError, IndexError):
-            raise input_error(path, f"row {k}", f"cannot be read ({','.join(row)[:60]!r})",
-                              "give an ISO 8601 time and numbers in every row") from None
-    time_s = np.asarray(t)
-    order = np.argsort(time_s, kind="stable")
-    track = FlownTrack(time_s[order], np.asarray(la)[order], np.asarray(lo)[order], np.asarray(z)[order],
-                       f"{path.name} (CSV)")
+    track, report = read_track(path)
+    if report.total_skipped:
+            warnings.warn(report.describe(), DataQualityWarning, stacklevel=2)
     if len(track) < 3:
-        raise input_error(path, "rows", f"only {len(track)} fixes", "give the whole flight")
+        raise input_error(path, "fixes", f"only {len(track)} usable fixes", "give the whole flight")
     return track
 
 
 def write_track_csv(track: FlownTrack, path: str | Path) -> Path:
     """Write a flown track as ``time,latitude,longitude,altitude_m`` (readable by :func:`read_flown_track`)."""
+    from datetime import UTC, datetime
+
     lines = ["time,latitude,longitude,altitude_m"]
     for t, la, lo, z in zip(track.time_s, track.lat, track.lon, track.alt_m, strict=True):
-        lines.append(f"{iso_from_posix(float(t))},{la:.7f},{lo:.7f},{z:.2f}")
+        stamp = datetime.fromtimestamp(float(t), tz=UTC).isoformat(timespec="microseconds").replace("+00:00", "Z")
+        lines.append(f"{stamp},{la:.8f},{lo:.8f},{z:.3f}")
     return atomic_write_text(path, "\n".join(lines) + "\n")
 
 
@@ -711,7 +680,9 @@ def verify_flight(plan: Any, flown: FlownTrack, members: int | None = None, seed
         burst_pos, _ = inverse(float(result.burst.lat[0]), float(result.burst.lon[0]),
                                float(flown.lat[ev.burst]), float(flown.lon[ev.burst]))
         top = max(float(np.max(flown.alt_m)), float(np.max(nominal.alt_m)))
-        edges = np.arange(0.0, top + BAND_HEIGHT_M, BAND_HEIGHT_M)
+        bottom = min(float(np.min(flown.alt_m)), float(np.min(nominal.alt_m)))
+        first = math.floor(bottom / BAND_HEIGHT_M + 1.0) * BAND_HEIGHT_M
+        edges = np.concatenate([[bottom], np.arange(first, top + BAND_HEIGHT_M, BAND_HEIGHT_M)])
         ft, fz = np.asarray(nominal.time_s, float), np.asarray(nominal.alt_m, float)
         tt, tz = np.asarray(flown.time_s, float), np.asarray(flown.alt_m, float)
         asc_fc = band_speeds(ft[: fev.burst + 1], fz[: fev.burst + 1], edges, True)
@@ -818,7 +789,8 @@ def plot_verification(ver: Verification, result: ForecastResult, zones: Any, flo
         ax.plot(unwrap_longitude(ring.lon, ref), ring.lat, color=PALETTE["landing_ellipse"],
                 ls=ELLIPSE_STYLES[k % len(ELLIPSE_STYLES)], lw=1.2, label=f"{e.probability:.0%} zone", zorder=3)
     ax.plot(unwrap_longitude(nom.lon, ref), nom.lat, color=PALETTE["track"], lw=1.8, label="Forecast", zorder=4)
-    ax.plot(unwrap_longitude(flown.lon, ref), flown.lat, color=PALETTE["burst"], lw=1.8, label="Flown", zorder=5)
+    ax.plot(unwrap_longitude(flown.lon, ref), flown.lat, color=PALETTE["burst"], lw=1.6, ls="--", label="Flown",
+            zorder=5)
     ax.plot(ref, result.launch_lat, "^", color=PALETTE["launch"], ms=9, label="Launch", zorder=6)
     ax.plot(unwrap_longitude(ver.forecast_landing[1], ref), ver.forecast_landing[0], "X", color=PALETTE["track"],
             ms=9, zorder=6)

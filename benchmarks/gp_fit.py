@@ -26,7 +26,7 @@ from balloonpath.winds.field import UniformField
 from balloonpath.winds.gp import fit_wind_field
 from balloonpath.winds.observations import WindObservations
 
-T0 = 1_900_000_000.0
+T0 = 1_800_000_000.0
 LAT0, LON0 = 52.1, -3.4  # invented scenario centre
 
 
@@ -91,7 +91,8 @@ def main(quick: bool = False) -> None:
 
     print("3. samples for the ensemble (1000 members) and per-call cost")
     for n in sizes[:2]:
-        field = fields[n][1].with_corridor(LAT0 - 2, LAT0 + 2, LON0 - 3, LON0 + 3, 35_000.0, T0 - 3 * 3600, T0 + 6 * 3600)
+        field = fields[n][1].with_corridor(LAT0 - 2, LAT0 + 2, LON0 - 3, LON0 + 3, 35_000.0,
+                                           T0 - 3 * 3600, T0 + 6 * 3600)
         tracemalloc.start()
         t = time.perf_counter()
         members = field.sample(1000, np.random.default_rng(2))

@@ -28,7 +28,7 @@ from balloonpath.winds.gp_kernels import GPHyperparameters, log_marginal_likelih
 from balloonpath.winds.gp_sample import FastProjection
 from balloonpath.winds.observations import WindObservations
 
-T0 = 1_900_000_000.0  # an invented launch day, POSIX seconds
+T0 = 1_800_000_000.0  # an invented launch day (2027-01-15), POSIX seconds
 LAT0, LON0 = -41.3, 173.2  # invented scenario "Tarnwick Plain", southern and eastern: negative latitude
 
 

@@ -12,7 +12,7 @@ from balloonpath.cli import main
 from balloonpath.winds.gp import load_wind_field
 from balloonpath.winds.observations import WindObservations, write_observations
 
-T0 = 1_900_000_000.0
+T0 = 1_800_000_000.0
 
 
 def test_fit_then_show(tmp_path, capsys):

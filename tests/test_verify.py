@@ -20,7 +20,8 @@ import numpy as np
 import pytest
 from scipy import integrate, stats
 
-from balloonpath.ensemble import State, integrate as fly
+from balloonpath.ensemble import State
+from balloonpath.ensemble import integrate as fly
 from balloonpath.errors import InputDataError
 from balloonpath.flight.descent import parachute_descent_rate
 from balloonpath.flight.vertical import vertical_params_from_plan
@@ -46,6 +47,8 @@ from balloonpath.winds.field import MeanMemberWinds
 from balloonpath.winds.synthetic import SyntheticAtmosphereField, write_sounding_csv
 from balloonpath.zones import chi2_scale, ellipse_from_points
 
+pytestmark = pytest.mark.filterwarnings("ignore:wind GP. no usable observations")
+
 T0 = 1_810_000_000.0  # 2027-05-10T...Z, invented flight day
 LAT0, LON0, ELEV = 51.20, -1.75, 150.0
 
@@ -58,17 +61,17 @@ elevation_m = 150.0
 site_name = "Thistlewick Downs"
 
 [rates]
-ascent_m_s = 5.0
-burst_altitude_m = 24000.0
+ascent_m_s = 6.0
+burst_altitude_m = 16000.0
 descent_sea_level_m_s = 5.0
 
 [winds]
 sounding = "sounding.csv"
 
 [ensemble]
-members = 60
+members = 30
 seed = 3
-time_step_s = 10.0
+time_step_s = 20.0
 """
 
 PHYSICS = """\
@@ -104,7 +107,7 @@ def _plan(tmp_path: Path, text: str):
     from balloonpath.timeutil import iso_from_posix
 
     truth = SyntheticAtmosphereField(LAT0, LON0, T0, seed=4, jet_speed_m_s=30.0, ground_m=ELEV)
-    write_sounding_csv(truth, LAT0, LON0, T0, tmp_path / "sounding.csv")
+    write_sounding_csv(truth, LAT0, LON0, T0, tmp_path / "sounding.csv", levels_m=np.arange(0.0, 40_001.0, 500.0))
     path = tmp_path / "plan.toml"
     path.write_text(text.format(time=iso_from_posix(T0)), encoding="utf-8")
     return load_plan(path)
@@ -126,7 +129,7 @@ def test_nominal_track_verifies_with_zero_error_and_shift_is_exact(tmp_path: Pat
     # Through the CSV reader too (times written to the microsecond, positions to 1e-7 degree ~ 1 cm).
     write_track_csv(flown, tmp_path / "flown.csv")
     flown = read_flown_track(tmp_path / "flown.csv")
-    ver, result, zones = verify_flight(plan, flown, members=40, winds=winds)
+    ver, result, zones = verify_flight(plan, flown, members=20, winds=winds)
     assert ver.landing_error_m < 0.05
     assert abs(ver.burst_altitude_error_m) < 0.01
     assert abs(ver.burst_time_error_s) < 1e-3
@@ -135,26 +138,26 @@ def test_nominal_track_verifies_with_zero_error_and_shift_is_exact(tmp_path: Pat
     both = np.isfinite(ver.ascent_speed_flown_m_s)
     assert both.sum() >= 5
     np.testing.assert_allclose(ver.ascent_speed_flown_m_s[both], ver.ascent_speed_forecast_m_s[both], atol=1e-6)
-    # Rates mode: the calibration gives back the plan's rates (5.0 m/s up, 5.0 m/s at sea level down).
+    # Rates mode: the calibration gives back the plan's rates (6.0 m/s up, 5.0 m/s at sea level down).
     cal = ver.calibration.values
-    assert cal["ascent_m_s"]["value"] == pytest.approx(5.0, rel=1e-3)
+    assert cal["ascent_m_s"]["value"] == pytest.approx(6.0, rel=1e-3)
     assert cal["descent_sea_level_m_s"]["value"] == pytest.approx(5.0, rel=0.01)
-    assert cal["burst_altitude_m"]["value"] == pytest.approx(24_000.0, abs=0.01)
+    assert cal["burst_altitude_m"]["value"] == pytest.approx(16_000.0, abs=0.01)
 
     # A copy shifted 3.2 km toward 65 degrees (every point along the geodesic) lands exactly there.
     lat, lon = forward(flown.lat, flown.lon, 65.0, 3_200.0)
     shifted = dataclasses.replace(flown, lat=np.asarray(lat), lon=np.asarray(lon), source="shifted")
-    ver2, _, _ = verify_flight(plan, shifted, members=40, winds=winds)
+    ver2, _, _ = verify_flight(plan, shifted, members=20, winds=winds)
     assert ver2.landing_error_m == pytest.approx(3_200.0, abs=0.05)
     # The azimuth at the forecast landing equals the shift's azimuth there (same geodesic).
     d, az = inverse(ver2.forecast_landing[0], ver2.forecast_landing[1], lat[-1], lon[-1])
     assert ver2.landing_error_bearing_deg == pytest.approx(float(az), abs=1e-6)
-    assert float(az) == pytest.approx(65.0, abs=1e-6)
+    assert float(az) == pytest.approx(65.0, abs=1e-4)  # the CSV round trip moves points by ~1 mm
     assert np.nanmax(np.abs(ver2.error_distance_m - 3_200.0)) < 0.5
 
     # A copy delayed by 5 minutes: burst and landing times late by exactly 300 s.
     late = dataclasses.replace(flown, time_s=flown.time_s + 300.0)
-    ver3, _, _ = verify_flight(plan, late, members=40, winds=winds, launch_time_s=float(flown.time_s[0]))
+    ver3, _, _ = verify_flight(plan, late, members=20, winds=winds, launch_time_s=float(flown.time_s[0]))
     assert ver3.burst_time_error_s == pytest.approx(300.0, abs=1e-6)
     assert ver3.landing_time_error_s == pytest.approx(300.0, abs=1e-6)
 
@@ -201,10 +204,10 @@ def test_rank_and_zone_membership_on_a_constructed_ensemble() -> None:
     x = (radii[:, None] * np.sin(ang)[None, :]).ravel()
     y = (radii[:, None] * np.cos(ang)[None, :]).ravel()
     s = math.sqrt(2.0 * np.sum(radii**2) / (4 * k - 1))
-    # Truth between circles 20 and 21, at 45 degrees: exactly 80 of 200 members are closer.
-    r_truth = 2_050.0
+    # Truth between circles 30 and 31, at 45 degrees: exactly 120 of 200 members are closer.
+    r_truth = 3_050.0
     tx, ty = r_truth * math.sin(math.radians(45)), r_truth * math.cos(math.radians(45))
-    assert mahalanobis_rank(np.column_stack([x, y]), [tx, ty]) == pytest.approx(80 / 200, abs=1e-12)
+    assert mahalanobis_rank(np.column_stack([x, y]), [tx, ty]) == pytest.approx(120 / 200, abs=1e-12)
     assert mahalanobis_rank(np.column_stack([x, y]), [0.0, 0.0]) == 0.0
     assert mahalanobis_rank(np.column_stack([x, y]), [1e6, 0.0]) == 1.0
     # The ellipses of zones.py are circles of radius sqrt(chi2_2(p)) s ([Wang2015]).
@@ -228,7 +231,7 @@ def test_rank_is_uniform_for_a_calibrated_gaussian_ensemble() -> None:
 def test_crps_gaussian_closed_form_matches_the_integral_definition() -> None:
     # CRPS(F, y) = integral (F(x) - 1{x >= y})^2 dx ([GneitingRaftery2007]); quad evaluates it.
     for mu, sd, y in ((0.0, 1.0, 0.3), (2.0, 3.0, -4.0), (10.0, 0.5, 10.0)):
-        def sq(x: float) -> float:
+        def sq(x: float, mu: float = mu, sd: float = sd, y: float = y) -> float:
             return (stats.norm.cdf(x, mu, sd) - (1.0 if x >= y else 0.0)) ** 2
 
         ref = integrate.quad(sq, mu - 12 * sd, y, limit=200)[0] + integrate.quad(sq, y, mu + 12 * sd, limit=200)[0]
@@ -254,7 +257,7 @@ def test_crps_ensemble_matches_gaussian_and_energy_score_reduces_to_crps() -> No
 def test_track_reader_and_many_folder(tmp_path: Path) -> None:
     bad = tmp_path / "bad.csv"
     bad.write_text("time,latitude,longitude\n2027-05-14T12:00:00Z,1,2\n", encoding="utf-8")
-    with pytest.raises(InputDataError, match=r"bad\.csv: header: lacks column\(s\) altitude_m; fix"):
+    with pytest.raises(InputDataError, match=r"bad\.csv: .*altitude_m.*; fix"):
         read_flown_track(bad)
     root = tmp_path / "season"
     (root / "flight-a").mkdir(parents=True)

@@ -1,0 +1,232 @@
+"""Skill benchmark: what the aircraft winds add, in twin experiments on invented cases.
+
+For each case (all invented, seeded by the case number):
+
+1. a truth wind field (:class:`~balloonpath.winds.synthetic.SyntheticAtmosphereField`: jet with a
+   meandering axis, shear, horizontal gradients, eddies that change in time) around an invented launch
+   site;
+2. a background forecast = the truth plus smooth seeded errors of rms ``background_error_sigma(lead)``
+   per component (the error the forecast's own uncertainty model claims at that lead time);
+3. simulated aircraft flying through the truth (:func:`~balloonpath.winds.traffic.simulate_traffic`), their
+   report table written and turned into wind observations by
+   :func:`~balloonpath.winds.aircraft.derive_observations` (noise, heading biases and quality control
+   included), fused by :func:`~balloonpath.winds.gp.fit_wind_field`;
+4. the truth flight: the plan's balloon flown through the truth field (mean winds only);
+5. two forecasts with the pipeline (:func:`~balloonpath.forecast.run_forecast`): background only (its
+   prior error model) and fused; each scored against the truth landing with :mod:`balloonpath.verify`.
+
+The vertical model is held exact (ensemble ascent/burst/descent spreads set to zero and the truth flies
+the plan's rates), so the coverage tests the WIND uncertainty alone, which is what the GP must get right.
+
+Printed: per case the landing errors, the cut in percent and whether the truth landed inside the
+50/90/95 % zones; then the median cut and the coverage of each zone for both forecasts, the mean rank
+and the mean energy score [GneitingRaftery2007]. Run::
+
+    .venv/bin/python benchmarks/skill.py                 # 24 cases, 200 members
+    .venv/bin/python benchmarks/skill.py --cases 40 --workers 2 --json skill.json
+
+With 24 cases the coverage of one zone has a binomial standard deviation of about 10 points at 50 % and 4-6
+points at 90-95 %: read the rank (PIT) mean and histogram beside it.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+import tempfile
+import time
+import warnings
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+import numpy as np
+
+from balloonpath.atmosphere import StandardAtmosphere
+from balloonpath.forecast import LoadedWinds, fly_nominal, run_forecast
+from balloonpath.geodesy import inverse
+from balloonpath.plan import parse_plan
+from balloonpath.verify import ZONE_PROBABILITIES, energy_score, inside_ellipses, mahalanobis_rank
+from balloonpath.winds.aircraft import derive_observations
+from balloonpath.winds.gp import background_error_sigma, fit_wind_field
+from balloonpath.winds.observations import WindObservations
+from balloonpath.winds.synthetic import SyntheticAtmosphereField
+from balloonpath.winds.traffic import simulate_traffic, write_report_table
+from balloonpath.zones import compute_zones
+
+BASE_TIME_S = 1_815_000_000.0  # an invented day in 2027
+LEAD_TIME_H = 12.0
+#: Aircraft per case and their reporting (modest counts keep a case to seconds).
+N_AIRCRAFT = 16
+TRAFFIC_HOURS = 2.0
+
+
+def _plan(folder: Path, lat: float, lon: float, t0: float, members: int, seed: int):
+    """A rates-mode plan with exact vertical parameters (the wind is the only uncertainty)."""
+    (folder / "unused.csv").touch()  # the plan needs a wind file; the winds are handed in directly
+    from datetime import UTC, datetime
+
+    data = {
+        "launch": {"latitude": lat, "longitude": lon, "time": datetime.fromtimestamp(t0, tz=UTC),
+                   "elevation_m": 0.0},
+        "rates": {"ascent_m_s": 5.0, "burst_altitude_m": 26_000.0, "descent_sea_level_m_s": 5.0},
+        "winds": {"sounding": "unused.csv"},
+        "ensemble": {"members": members, "seed": seed, "ascent_sigma_fraction": 0.0,
+                     "burst_sigma_fraction": 0.0, "descent_sigma_fraction": 0.0, "time_step_s": 20.0},
+    }
+    return parse_plan(data, folder / "plan.toml")
+
+
+def _score(result, truth_lat: float, truth_lon: float) -> dict:
+    zones = compute_zones(result)
+    proj = zones.projection()
+    tx, ty = proj.to_local(truth_lat, truth_lon)
+    pts = np.column_stack([zones.landing_x_m, zones.landing_y_m])
+    err, _ = inverse(result.landing.lat[0], result.landing.lon[0], truth_lat, truth_lon)
+    return {
+        "landing_error_m": float(err),
+        "inside": {f"{p:.2f}": v for p, v in inside_ellipses(zones.ellipses, float(tx), float(ty)).items()},
+        "rank": mahalanobis_rank(pts, [float(tx), float(ty)]),
+        "energy_score_m": energy_score(pts, [float(tx), float(ty)]),
+        "zone90_semi_major_m": float(zones.ellipses[1].semi_major_m),
+    }
+
+
+def run_case(case: int, members: int = 200, hyperparameters: dict | None = None) -> dict:
+    """One twin experiment; returns the scores of both forecasts (deterministic in ``case``)."""
+    warnings.simplefilter("ignore")
+    rng = np.random.default_rng([2027, case])
+    lat0 = float(rng.uniform(32.0, 56.0))
+    lon0 = float(rng.uniform(-115.0, 25.0))
+    t0 = BASE_TIME_S + case * 86_400.0 + float(rng.uniform(0.0, 86_400.0))
+    jet_alt = float(rng.uniform(9_500.0, 12_000.0))
+    truth = SyntheticAtmosphereField(
+        lat0, lon0, t0, seed=100 + case, jet_speed_m_s=float(rng.uniform(30.0, 60.0)),
+        jet_altitude_m=jet_alt, jet_direction_deg=float(rng.uniform(240.0, 300.0)),
+        surface_wind_m_s=float(rng.uniform(2.0, 8.0)),
+    )
+    sigma_b = background_error_sigma(LEAD_TIME_H)
+    background = truth.perturbed(seed=1_000 + case, amplitude_m_s=sigma_b)
+    timings = {}
+    clock = time.perf_counter()
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp)
+        traffic = simulate_traffic(truth, lat0, lon0, t0 - TRAFFIC_HOURS * 3600.0, TRAFFIC_HOURS * 3600.0, rng,
+                                   n_aircraft=N_AIRCRAFT, step_s=4.0)
+        table = write_report_table(traffic, folder / "reports.csv", rng, interval_s=20.0)
+        obs, _report = derive_observations([table], background=background)
+        timings["aircraft_s"] = time.perf_counter() - clock
+        clock = time.perf_counter()
+        from balloonpath.winds.gp_kernels import GPHyperparameters
+
+        hp = GPHyperparameters(**hyperparameters) if hyperparameters else None
+        fused = fit_wind_field(obs, background, center=(lat0, lon0), lead_time_h=LEAD_TIME_H,
+                               hyperparameters=hp, optimize=hp is None)
+        prior = fit_wind_field(WindObservations.empty(), background, center=(lat0, lon0), lead_time_h=LEAD_TIME_H)
+        timings["fit_s"] = time.perf_counter() - clock
+        clock = time.perf_counter()
+        plan = _plan(folder, lat0, lon0, t0, members, seed=case + 1)
+        atm = StandardAtmosphere()
+        truth_traj, _ = fly_nominal(plan, LoadedWinds(truth, atm, {}))
+        t_lat, t_lon = float(truth_traj.landing_lat[0]), float(truth_traj.landing_lon[0])
+        out = {}
+        for name, field in (("background", prior), ("fused", fused)):
+            result = run_forecast(plan, winds=LoadedWinds(field, atm, {"sources": [name]}))
+            out[name] = _score(result, t_lat, t_lon)
+        timings["forecasts_s"] = time.perf_counter() - clock
+    z = np.asarray(obs.alt_m)
+    return {
+        "case": case, "latitude": round(lat0, 3), "longitude": round(lon0, 3), "jet_altitude_m": round(jet_alt),
+        "observations": len(obs), "obs_near_jet": int(np.count_nonzero(np.abs(z - jet_alt) < 1_500.0)),
+        "truth_distance_m": float(inverse(lat0, lon0, t_lat, t_lon)[0]),
+        "hyperparameters": fused.hyperparameters.as_dict(), "timings": timings, **out,
+    }
+
+
+def summarise(rows: list[dict]) -> dict:
+    """Median cut, coverage, rank and energy score of both forecasts over the cases."""
+    out: dict = {"cases": len(rows)}
+    bg = np.array([r["background"]["landing_error_m"] for r in rows])
+    fu = np.array([r["fused"]["landing_error_m"] for r in rows])
+    cut = 100.0 * (1.0 - fu / bg)
+    covered = np.array([r["obs_near_jet"] > 0 for r in rows])
+    out["median_error_background_km"] = float(np.median(bg) / 1e3)
+    out["median_error_fused_km"] = float(np.median(fu) / 1e3)
+    out["median_cut_percent"] = float(np.median(cut))
+    out["cut_of_median_errors_percent"] = float(100.0 * (1.0 - np.median(fu) / np.median(bg)))
+    out["median_cut_percent_jet_covered"] = float(np.median(cut[covered])) if covered.any() else None
+    for name in ("background", "fused"):
+        cov = {k: float(np.mean([r[name]["inside"][k] for r in rows])) for k in (f"{p:.2f}" for p in ZONE_PROBABILITIES)}
+        ranks = np.array([r[name]["rank"] for r in rows])
+        out[name] = {"coverage": cov, "mean_rank": float(np.mean(ranks)),
+                     "rank_histogram": np.histogram(ranks, bins=5, range=(0, 1))[0].tolist(),
+                     "mean_energy_score_km": float(np.mean([r[name]["energy_score_m"] for r in rows]) / 1e3),
+                     "median_zone90_semi_major_km": float(np.median([r[name]["zone90_semi_major_m"]
+                                                                      for r in rows]) / 1e3)}
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the benchmark and print the table."""
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--cases", type=int, default=24)
+    ap.add_argument("--members", type=int, default=200)
+    ap.add_argument("--workers", type=int, default=1, help="processes (the cases are independent)")
+    ap.add_argument("--learn", choices=("each", "once"), default="once",
+                    help="learn the GP hyperparameters in every case, or once on case 0 and reuse them")
+    ap.add_argument("--json", type=Path, default=None, help="also write the rows and summary here")
+    args = ap.parse_args(argv)
+    start = time.perf_counter()
+    cases = list(range(args.cases))
+    rows: list[dict] = []
+    hp = None
+    if args.learn == "once":
+        first = run_case(0, args.members)
+        rows.append(first)
+        hp = first["hyperparameters"]
+        cases = cases[1:]
+    if args.workers > 1:
+        with ProcessPoolExecutor(max_workers=args.workers) as pool:
+            rows += list(pool.map(run_case, cases, [args.members] * len(cases), [hp] * len(cases)))
+    else:
+        rows += [run_case(c, args.members, hp) for c in cases]
+    rows.sort(key=lambda r: r["case"])
+    elapsed = time.perf_counter() - start
+
+    print(f"{'case':>4} {'obs':>5} {'jet':>4} {'dist km':>8} {'bg err km':>9} {'fused km':>9} {'cut %':>6}"
+          f"  bg in 50/90/95  fused in 50/90/95  bg rank  fused rank")
+    for r in rows:
+        b, f = r["background"], r["fused"]
+        cut = 100.0 * (1.0 - f["landing_error_m"] / b["landing_error_m"])
+
+        def flags(s: dict) -> str:
+            return "/".join("y" if s["inside"][f"{p:.2f}"] else "n" for p in ZONE_PROBABILITIES)
+
+        print(f"{r['case']:>4} {r['observations']:>5} {r['obs_near_jet']:>4} {r['truth_distance_m'] / 1e3:>8.1f} "
+              f"{b['landing_error_m'] / 1e3:>9.2f} {f['landing_error_m'] / 1e3:>9.2f} {cut:>6.0f}  "
+              f"{flags(b):>15}  {flags(f):>17}  {b['rank']:>7.2f}  {f['rank']:>10.2f}")
+    s = summarise(rows)
+    print()
+    print(f"cases {s['cases']}, members {args.members}, hyperparameters learned {args.learn}, "
+          f"{elapsed:.0f} s on {args.workers} worker(s)")
+    print(f"median landing error: background {s['median_error_background_km']:.2f} km, fused "
+          f"{s['median_error_fused_km']:.2f} km; median cut {s['median_cut_percent']:.0f} % (goal >= 60 %), "
+          f"cut of the median errors {s['cut_of_median_errors_percent']:.0f} %")
+    for name in ("background", "fused"):
+        d = s[name]
+        cov = d["coverage"]
+        print(f"{name:>10}: coverage 50/90/95 % zones = " + "/".join(f"{100 * cov[k]:.0f}" for k in cov)
+              + f" %; mean rank {d['mean_rank']:.2f} (0.50 calibrated), rank histogram {d['rank_histogram']}, "
+              f"mean energy score {d['mean_energy_score_km']:.2f} km, median 90 % semi-major "
+              f"{d['median_zone90_semi_major_km']:.1f} km")
+    n = s["cases"]
+    print("binomial sd of a coverage with this many cases: "
+          + ", ".join(f"{100 * math.sqrt(p * (1 - p) / n):.0f} pts at {p:.0%}" for p in ZONE_PROBABILITIES))
+    if args.json is not None:
+        args.json.write_text(json.dumps({"rows": rows, "summary": s, "elapsed_s": elapsed}, indent=1) + "\n")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
