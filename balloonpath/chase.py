@@ -327,11 +327,16 @@ def estimate_flight_state(
     w, w_sd = _theil_sen(t[recent], z[recent])
     if not math.isfinite(w):
         w, w_sd = 0.0, math.inf
-    # launch: first fix from which the altitude stays above the first fix + LAUNCH_RISE_M
-    above = z > z[0] + LAUNCH_RISE_M
-    stays = np.flip(np.logical_and.accumulate(np.flip(above)))
-    launched = bool(stays.any())
-    i_launch = int(np.argmax(stays)) if launched else t.size - 1
+    # launch: the first run of 3 consecutive fixes (or a run reaching the latest fix) above the ground
+    # level (median of the first 3 fixes) + LAUNCH_RISE_M
+    above = z > float(np.median(z[:3])) + LAUNCH_RISE_M
+    i_launch, launched = t.size - 1, False
+    run = 0
+    for i in range(t.size):  # first qualifying run: a scan over the fixes, once per update
+        run = run + 1 if above[i] else 0
+        if run >= 3 or (run >= 1 and i == t.size - 1):
+            i_launch, launched = i - run + 1, True
+            break
     t_launch = float(t[max(i_launch - 1, 0)]) if launched else max(plan.launch_time_s, t_now)
     i_max = int(np.argmax(z))
     z_max, t_max = float(z[i_max]), float(t[i_max])

@@ -61,7 +61,15 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
     info: dict[str, Any] = {"sources": [], "observations": 0, "gp": None}
     atmosphere: Atmosphere = StandardAtmosphere()
     if w.field is not None:
-        field = gp.load_wind_field(w.field)
+        loader = None
+        if w.grid is not None or w.sounding:
+            # The plan names the background: it overrides the one stored with the fitted field.
+            def loader(_spec: dict) -> WindField:
+                return _background_of(plan, info, atmosphere_holder)[0]
+        atmosphere_holder: list[Atmosphere] = []
+        field = gp.load_wind_field(w.field, background_loader=loader)
+        if atmosphere_holder:
+            atmosphere = atmosphere_holder[0]
         info["sources"].append(f"fitted field {w.field.name}")
         info["gp"] = getattr(field, "info", None)
         info["observations"] = int(getattr(field, "n_observations", 0))
@@ -110,6 +118,24 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
     )
     info["gp"] = getattr(field, "info", None)
     return LoadedWinds(field, atmosphere, info, obs if len(obs) else None)
+
+
+def _background_of(plan: Plan, info: dict[str, Any], atmosphere_holder: list) -> tuple[WindField, None]:
+    """The plan's background field (grid, else soundings); the day's air goes into ``atmosphere_holder``."""
+    w = plan.winds
+    if w.grid is not None:
+        from balloonpath.winds.grid import GridField
+
+        info["sources"].append(f"gridded forecast {w.grid.name}")
+        return GridField.open(w.grid, outside=w.outside), None
+    from balloonpath.winds.sounding import SoundingField, atmosphere_from_soundings, read_sounding
+
+    soundings = [read_sounding(path) for path in w.sounding]
+    info["sources"].extend(f"sounding {p.name}" for p in w.sounding)
+    day_air = atmosphere_from_soundings(soundings)
+    if day_air is not None:
+        atmosphere_holder.append(day_air)
+    return SoundingField(soundings, outside=w.outside), None
 
 
 class _NominalFirst:

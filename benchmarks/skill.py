@@ -93,7 +93,8 @@ def _score(result, truth_lat: float, truth_lon: float) -> dict:
     }
 
 
-def run_case(case: int, members: int = 200, hyperparameters: dict | None = None) -> dict:
+def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
+             heading_bias_fraction: float = 0.15) -> dict:
     """One twin experiment; returns the scores of both forecasts (deterministic in ``case``)."""
     warnings.simplefilter("ignore")
     rng = np.random.default_rng([2027, case])
@@ -113,7 +114,8 @@ def run_case(case: int, members: int = 200, hyperparameters: dict | None = None)
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         traffic = simulate_traffic(truth, lat0, lon0, t0 - TRAFFIC_HOURS * 3600.0, TRAFFIC_HOURS * 3600.0, rng,
-                                   n_aircraft=N_AIRCRAFT, step_s=4.0)
+                                   n_aircraft=N_AIRCRAFT, step_s=4.0,
+                                   heading_bias_fraction=heading_bias_fraction)
         table = write_report_table(traffic, folder / "reports.csv", rng, interval_s=20.0)
         obs, _report = derive_observations([table], background=background)
         timings["aircraft_s"] = time.perf_counter() - clock
@@ -175,6 +177,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--workers", type=int, default=1, help="processes (the cases are independent)")
     ap.add_argument("--learn", choices=("each", "once"), default="once",
                     help="learn the GP hyperparameters in every case, or once on case 0 and reuse them")
+    ap.add_argument("--heading-bias-fraction", type=float, default=0.15,
+                    help="fraction of aircraft with a 2-4 degree heading bias (traffic generator default 0.15)")
     ap.add_argument("--json", type=Path, default=None, help="also write the rows and summary here")
     args = ap.parse_args(argv)
     start = time.perf_counter()
@@ -182,15 +186,16 @@ def main(argv: list[str] | None = None) -> int:
     rows: list[dict] = []
     hp = None
     if args.learn == "once":
-        first = run_case(0, args.members)
+        first = run_case(0, args.members, None, args.heading_bias_fraction)
         rows.append(first)
         hp = first["hyperparameters"]
         cases = cases[1:]
     if args.workers > 1:
         with ProcessPoolExecutor(max_workers=args.workers) as pool:
-            rows += list(pool.map(run_case, cases, [args.members] * len(cases), [hp] * len(cases)))
+            rows += list(pool.map(run_case, cases, [args.members] * len(cases), [hp] * len(cases),
+                                  [args.heading_bias_fraction] * len(cases)))
     else:
-        rows += [run_case(c, args.members, hp) for c in cases]
+        rows += [run_case(c, args.members, hp, args.heading_bias_fraction) for c in cases]
     rows.sort(key=lambda r: r["case"])
     elapsed = time.perf_counter() - start
 
@@ -208,7 +213,8 @@ def main(argv: list[str] | None = None) -> int:
               f"{flags(b):>15}  {flags(f):>17}  {b['rank']:>7.2f}  {f['rank']:>10.2f}")
     s = summarise(rows)
     print()
-    print(f"cases {s['cases']}, members {args.members}, hyperparameters learned {args.learn}, "
+    print(f"cases {s['cases']}, members {args.members}, hyperparameters learned {args.learn}, heading-bias "
+          f"fraction {args.heading_bias_fraction}, "
           f"{elapsed:.0f} s on {args.workers} worker(s)")
     print(f"median landing error: background {s['median_error_background_km']:.2f} km, fused "
           f"{s['median_error_fused_km']:.2f} km; median cut {s['median_cut_percent']:.0f} % (goal >= 60 %), "

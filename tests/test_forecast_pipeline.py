@@ -119,3 +119,39 @@ def test_winds_that_do_not_cover_the_flight_fail_cleanly(tmp_path, capsys):
 
 def test_plan_reference_doc_is_in_step_with_the_schema():
     assert (ROOT / "docs" / "plan.md").read_text() == schema_markdown()
+
+
+def test_plan_with_observations_and_with_a_saved_field(tmp_path, coastal_plan):
+    """[winds] observations are fused on the fly; [winds] field uses a saved fit; both reach the summary."""
+    from balloonpath.winds.gp import fit_wind_field
+    from balloonpath.winds.observations import WindObservations, write_observations
+    from balloonpath.winds.sounding import sounding_field_from_paths
+
+    rng = np.random.default_rng(5)
+    n = 60
+    t0 = coastal_plan.launch_time_s
+    obs = WindObservations(
+        time_s=t0 - rng.uniform(0, 3600, n), lat=40.15 + rng.normal(0, 0.3, n), lon=-75.15 + rng.normal(0, 0.3, n),
+        alt_m=rng.uniform(8_000, 12_000, n), u=rng.normal(25, 1, n), v=rng.normal(0, 1, n),
+        sigma=np.full(n, 1.5), source=np.array(["test"] * n, dtype=object))
+    folder = coastal_plan.path.parent
+    write_observations(obs, tmp_path / "obs.csv")
+    text = coastal_plan.path.read_text().replace(
+        'sounding = ["sounding.csv"]', f'sounding = ["{folder / "sounding.csv"}"]\nobservations = ["obs.csv"]'
+    ).replace('avoid = "avoid.geojson"', f'avoid = "{folder / "avoid.geojson"}"')
+    (tmp_path / "plan.toml").write_text(text)
+    fused = run_forecast(load_plan(tmp_path / "plan.toml"), members=10, seed=1)
+    assert fused.wind_info["observations"] == n
+    assert fused.wind_info["gp"] is not None and "length" in json.dumps(fused.wind_info["gp"])
+
+    background = sounding_field_from_paths([folder / "sounding.csv"])
+    fitted = fit_wind_field(obs, background, center=(40.15, -75.15), lead_time_h=2.0)
+    fitted.save(tmp_path / "field.npz")
+    text2 = coastal_plan.path.read_text().replace('sounding = ["sounding.csv"]', 'field = "field.npz"').replace(
+        'avoid = "avoid.geojson"', f'avoid = "{folder / "avoid.geojson"}"')
+    (tmp_path / "plan2.toml").write_text(text2)
+    saved = run_forecast(load_plan(tmp_path / "plan2.toml"), members=10, seed=1)
+    assert any("fitted field" in s for s in saved.wind_info["sources"])
+    # the saved fit and the on-the-fly fit agree on the nominal landing (same data, same model)
+    d, _ = inverse(fused.landing.lat[0], fused.landing.lon[0], saved.landing.lat[0], saved.landing.lon[0])
+    assert float(d) < 2_000.0

@@ -49,6 +49,7 @@ from balloonpath.winds.gp_sample import (
     FastProjection,
     GridMemberWinds,
     GridSampler,
+    MemberSampler,
     choose_grid,
 )
 from balloonpath.winds.observations import WindObservations
@@ -182,16 +183,20 @@ class Posterior:
             out[:, o] = ((left * self.beta[:, o]) @ right.T).ravel() * self.hp.sigma_m_s**2
         return out
 
-    def sample_coefficients(self, f_at_points: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    def sample_coefficients(
+        self, f_at_points: np.ndarray, rng: np.random.Generator | None, normals: np.ndarray | None = None
+    ) -> np.ndarray:
         """Matheron coefficients c with e(x) = f(x) + k(x, P) c a posterior deviation ([Wilson2020]).
 
         exact: c = -(K + Lambda)^-1 (f(X) + eps), eps ~ N(0, Lambda).
         DTC:   c = A^-T/2 xi - K_ZZ^-1 f(Z), xi ~ N(0, I) (so Cov e = k - Q + k^T A^-1 k).
+        ``normals`` (same shape as ``f_at_points``) replaces the draw from ``rng`` (per-member streams).
         """
+        z = rng.standard_normal(f_at_points.shape) if normals is None else np.asarray(normals, dtype=float)
         if not self.sparse:
-            eps = rng.standard_normal(f_at_points.shape) * np.sqrt(self.noise_var)[:, None]
+            eps = z * np.sqrt(self.noise_var)[:, None]
             return -cho_solve((self.chol, True), f_at_points + eps, check_finite=False)
-        xi = rng.standard_normal(f_at_points.shape)
+        xi = z
         return solve_triangular(self.chol_a, xi, lower=True, trans="T", check_finite=False) - cho_solve(
             (self.chol_zz, True), f_at_points, check_finite=False
         )
@@ -372,6 +377,47 @@ class GPWindField:
                 hi = np.maximum(hi, pts[use].max(axis=0))
         budget = int(min(MAX_NODES, memory_budget_bytes // (8 * max(int(n_members), 1))))
         return choose_grid(lo, hi, ell, max(budget, 16)), use
+
+    def member_sampler(
+        self, n_total: int, memory_budget_bytes: int = MEMORY_BUDGET_BYTES
+    ) -> MemberSampler:
+        """The grid, sampler and gridded mean for per-member draws of an ensemble of ``n_total`` members.
+
+        The grid depends on ``n_total`` (memory budget) and the corridor only, never on which members a
+        chunk draws. Build once per (field, corridor, ensemble size) and call ``.draw(member_ids, seed)``.
+        """
+        n_total = int(n_total)
+        if n_total < 1:
+            raise input_error(None, "members", f"must be >= 1, got {n_total}", "ask for at least one member")
+        grid, use = self._sample_grid_and_points(n_total, memory_budget_bytes)
+        hp = self.hyperparameters
+        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use)
+        mean = self.posterior.mean_on_grid(grid) if self.posterior is not None else np.zeros((grid.size, 2))
+        return MemberSampler(self.background, self._fast_projection(), self.corridor.time_ref_s, sampler, mean)
+
+    def sample_members(
+        self, member_ids: np.ndarray, seed: int, n_total: int | None = None,
+        memory_budget_bytes: int = MEMORY_BUDGET_BYTES,
+    ) -> GridMemberWinds:
+        """Realisations of the members ``member_ids`` of an ensemble of ``n_total`` (default max id + 1).
+
+        Member i's realisation depends only on (field, corridor, n_total, seed, i): its normals come from
+        ``gp_sample.member_wind_generator(seed, i)``, so members drawn in chunks, on any worker, equal the
+        same members drawn at once (bit-identical; tested in tests/test_scale.py).
+        """
+        ids = np.asarray(member_ids, dtype=np.int64).ravel()
+        n = int(n_total) if n_total is not None else int(ids.max()) + 1
+        return self.member_sampler(n, memory_budget_bytes).draw(ids, seed)
+
+    def _fast_projection(self) -> FastProjection:
+        lo, hi = self.corridor.box()
+        lat_c, lon_c = self.projection.to_geographic(
+            np.array([lo[0], hi[0], lo[0], hi[0], 0.0]) * 1e3, np.array([lo[1], lo[1], hi[1], hi[1], 0.0]) * 1e3
+        )
+        dlon = normalize_longitude(lon_c - self.corridor.lon0)
+        return FastProjection(
+            self.projection, float(lat_c.min()) - 0.2, float(lat_c.max()) + 0.2, float(np.abs(dlon).max()) + 0.2
+        )
 
     def sample(
         self, n_members: int, rng: np.random.Generator, memory_budget_bytes: int = MEMORY_BUDGET_BYTES

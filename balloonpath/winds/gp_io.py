@@ -14,6 +14,10 @@ def background_spec_of(background: WindField) -> dict:
     """How a saved field refers to its background: a uniform wind's values, or a source path and type."""
     if isinstance(background, UniformField):
         return {"kind": "uniform", "u_m_s": background.u, "v_m_s": background.v}
+    soundings = getattr(background, "soundings", None)
+    if soundings and all(getattr(x, "path", None) for x in soundings):
+        return {"kind": "soundings", "paths": [str(Path(x.path).resolve()) for x in soundings],
+                "outside": getattr(background, "outside", "error")}
     for attr in ("source_path", "path"):
         p = getattr(background, attr, None)
         if p is not None:
@@ -54,6 +58,10 @@ def default_background_loader(spec: dict) -> WindField:
         return UniformField(spec["u_m_s"], spec["v_m_s"])
     if spec.get("kind") == "file":
         return load_background(spec["path"], spec.get("outside", "error"))[0]
+    if spec.get("kind") == "soundings":
+        from balloonpath.winds.sounding import sounding_field_from_paths
+
+        return sounding_field_from_paths([Path(p) for p in spec["paths"]], outside=spec.get("outside", "error"))
     raise input_error(
         None, "background", f"cannot rebuild the background {spec} of this fitted field",
         "pass background_loader= to load_wind_field, or name the background in the plan's [winds] table",

@@ -46,8 +46,11 @@ MEMORY_BUDGET_BYTES = 128 * 2**20
 MAX_NODES = 60_000
 #: Target grid spacing as a fraction of each length scale.
 SPACING_FRACTION = 1.0 / 3.0
-#: Members drawn per batch (bounds the working memory).
+#: Members drawn per batch (bounds the working memory). Per-member draws (:class:`MemberSampler`) use
+#: batches aligned to multiples of this number, so results do not depend on how members are chunked.
 BATCH_MEMBERS = 32
+#: Child index of a member's SeedSequence that feeds its wind realisation (see :func:`member_wind_generator`).
+WIND_STREAM_CHILD = 1
 
 
 class FastProjection:
@@ -317,14 +320,34 @@ class GridSampler:
         c = -(K~ + Lambda)^-1 (W g + eps) (exact GP) or ``posterior.sample_coefficients`` (DTC).
         """
         xi = rng.standard_normal((self.rank_size, n_fields))
+        return self.draw_from_normals(xi, None, rng)
+
+    @property
+    def n_update_normals(self) -> int:
+        """Standard normals per field used by the Matheron update (0 without observations)."""
+        if self.w_obs is None:
+            return 0
+        return int(self.w_obs.shape[0]) if self.s_chol is not None else int(self.posterior.n_points)
+
+    def draw_from_normals(
+        self, xi: np.ndarray, update_normals: np.ndarray | None, rng: np.random.Generator | None = None
+    ) -> np.ndarray:
+        """Posterior deviations (n_fields, G) from given standard normals.
+
+        ``xi`` (rank_size, n_fields) drives the prior draw; ``update_normals`` (n_update_normals, n_fields)
+        drives the update (observation noise eps / sqrt(Lambda), or the DTC xi). When ``update_normals`` is
+        None they are drawn from ``rng`` (the :meth:`draw` path, unchanged order of draws).
+        """
         g = self.sigma * _kron_apply(self.roots, xi)  # (n_fields, G)
         if self.w_obs is not None:
             f_at_points = self.w_obs @ g.T  # (n, n_fields)
+            if update_normals is None:
+                update_normals = rng.standard_normal(f_at_points.shape)
             if self.s_chol is not None:
-                eps = rng.standard_normal(f_at_points.shape) * np.sqrt(self.noise_var)[:, None]
+                eps = update_normals * np.sqrt(self.noise_var)[:, None]
                 coef = -cho_solve((self.s_chol, True), f_at_points + eps, check_finite=False)
             else:
-                coef = self.posterior.sample_coefficients(f_at_points, rng)  # (n, n_fields)
+                coef = self.posterior.sample_coefficients(f_at_points, None, normals=update_normals)
             # K_gg W^T coef with K_d = R_d R_d^T: compress by R^T, then expand by R
             low = _kron_apply(self.roots_t, self.w_obs_t @ coef)  # (n_fields, r)
             g += self.sigma**2 * _kron_apply(self.roots, np.ascontiguousarray(low.T))
@@ -348,7 +371,10 @@ class GridMemberWinds:
         lengths: np.ndarray,
         mean_nodes: np.ndarray,
         deviations: np.ndarray,
+        member_ids: np.ndarray | None = None,
     ) -> None:
+        """``member_ids`` (optional, distinct, >= 0): the member number of each row of ``deviations``
+        (a chunk of a larger ensemble); default rows 0..N-1."""
         self.background = background
         self.projection = projection
         self.time_ref_s = float(time_ref_s)
@@ -359,6 +385,15 @@ class GridMemberWinds:
         self.n_members = int(deviations.shape[0])
         self._flat = deviations.reshape(-1, 2)
         self._size = grid.size
+        self.member_ids = None
+        self._row = None
+        if member_ids is not None:
+            ids = np.asarray(member_ids, dtype=np.int64).ravel()
+            if ids.size != self.n_members or (ids.size and ids.min() < 0) or np.unique(ids).size != ids.size:
+                raise ValueError("GridMemberWinds: member_ids must be distinct, >= 0, one per deviation row")
+            self.member_ids = ids
+            self._row = np.full(int(ids.max()) + 1 if ids.size else 0, -1, dtype=np.int64)
+            self._row[ids] = np.arange(ids.size)
 
     @property
     def nbytes(self) -> int:
@@ -370,6 +405,12 @@ class GridMemberWinds:
     ) -> tuple[np.ndarray, np.ndarray]:
         """The GP part only (gridded posterior mean correction + member deviation), m/s."""
         members = np.asarray(members, dtype=np.int64).ravel()
+        if self._row is not None:
+            ok = (members >= 0) & (members < self._row.size)
+            rows = np.where(ok, self._row[np.where(ok, members, 0)], -1)
+            if np.any(rows < 0):
+                raise ValueError(f"GridMemberWinds: member {int(members[rows < 0][0])} is not in this chunk")
+            members = rows
         x, y = self.projection.to_local_km(np.ravel(lat), np.ravel(lon))
         pts = np.empty((members.size, 4))
         pts[:, 0] = x
@@ -391,3 +432,76 @@ class GridMemberWinds:
         ub, vb = self.background.wind(lat, lon, alt_m, time_s)
         du, dv = self.perturbation(members, lat, lon, alt_m, time_s)
         return np.asarray(ub) + du.reshape(lat.shape), np.asarray(vb) + dv.reshape(lat.shape)
+
+
+def member_wind_generator(seed: int, member: int) -> np.random.Generator:
+    """The random stream of member ``member``'s wind realisation.
+
+    ``SeedSequence(seed, spawn_key=(member, 1))``: child 1 of the member's own sequence
+    (``balloonpath.ensemble.member_generator`` draws the flight-parameter factors from the parent), so the
+    wind and parameter draws of a member are independent, and neither depends on the other members, the
+    chunking or the worker.
+    """
+    return np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(int(member), WIND_STREAM_CHILD)))
+
+
+class MemberSampler:
+    """Everything a set of members needs to draw their realisations on one grid (built once, reused).
+
+    Member i's realisation uses only the normals of :func:`member_wind_generator` ``(seed, i)``, in the
+    order [prior u (rank), prior v (rank), update u (n_update), update v (n_update)]. The linear algebra
+    runs on batches of ``BATCH_MEMBERS`` members aligned to member numbers (batch k holds members
+    32k..32k+31), so a member's deviation is computed by exactly the same operations whichever chunk asks
+    for it: chunked draws are bit-identical to one draw of all members (given the same BLAS library and
+    thread count; float32 storage rounds any residual difference of the last double bit away in all but
+    rare ties).
+    """
+
+    def __init__(
+        self,
+        background: WindField,
+        projection: FastProjection,
+        time_ref_s: float,
+        sampler: GridSampler,
+        mean_nodes: np.ndarray,
+    ) -> None:
+        self.background = background
+        self.projection = projection
+        self.time_ref_s = float(time_ref_s)
+        self.sampler = sampler
+        self.grid = sampler.grid
+        self.mean_nodes = np.ascontiguousarray(mean_nodes, dtype=np.float32)
+
+    def _normals(self, seed: int, member: int) -> tuple[np.ndarray, np.ndarray]:
+        rng = member_wind_generator(seed, member)
+        r, m = self.sampler.rank_size, self.sampler.n_update_normals
+        prior = rng.standard_normal((2, r))
+        update = rng.standard_normal((2, m))
+        return prior, update
+
+    def draw(self, member_ids: np.ndarray, seed: int) -> GridMemberWinds:
+        """Realisations of the given members (any subset, any order), as a :class:`GridMemberWinds`."""
+        ids = np.asarray(member_ids, dtype=np.int64).ravel()
+        if ids.size == 0 or ids.min() < 0 or np.unique(ids).size != ids.size:
+            raise ValueError("MemberSampler.draw: member ids must be distinct and >= 0 (at least one)")
+        dev = np.empty((ids.size, self.grid.size, 2), dtype=np.float32)
+        r, m = self.sampler.rank_size, self.sampler.n_update_normals
+        for block in np.unique(ids // BATCH_MEMBERS):
+            block_ids = np.arange(block * BATCH_MEMBERS, (block + 1) * BATCH_MEMBERS)
+            b = block_ids.size
+            xi = np.empty((r, 2 * b))
+            upd = np.empty((m, 2 * b)) if m else None
+            for k, member in enumerate(block_ids):
+                prior, update = self._normals(seed, int(member))
+                xi[:, k], xi[:, b + k] = prior[0], prior[1]
+                if upd is not None:
+                    upd[:, k], upd[:, b + k] = update[0], update[1]
+            fields = self.sampler.draw_from_normals(xi, upd)
+            want = np.flatnonzero(ids // BATCH_MEMBERS == block)
+            pos = ids[want] - block * BATCH_MEMBERS
+            dev[want, :, 0] = fields[pos]
+            dev[want, :, 1] = fields[b + pos]
+        return GridMemberWinds(
+            self.background, self.projection, self.time_ref_s, self.grid, self.sampler.lengths,
+            self.mean_nodes, dev, member_ids=ids,
+        )
