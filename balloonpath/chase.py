@@ -805,7 +805,7 @@ class ChaseUpdate:
     warnings: tuple[str, ...] = field(default_factory=tuple)
 
     def summary(self) -> dict[str, Any]:
-        """The content of chase.json."""
+        """The content of chase.json (no wall-clock timings: same inputs and seed, same bytes)."""
         from balloonpath.timeutil import iso_from_posix
 
         def r(x: float | None, nd: int) -> float | None:
@@ -826,7 +826,6 @@ class ChaseUpdate:
                 "latitude": r(self.crew_lat, 6), "longitude": r(self.crew_lon, 6),
                 "distance_m": r(self.crew_distance_m, 1), "bearing_deg": r(self.crew_bearing_deg, 1)},
             "wind_observations": self.wind_observations,
-            "update_s": r(self.update_s, 3), "fit_s": r(self.fit_s, 4),
             "telemetry": self.read_report.as_dict() if self.read_report is not None else None,
             "warnings": list(self.warnings),
         }
@@ -894,7 +893,10 @@ class ChaseSession:
         with recording_warnings(log):
             est = estimate_flight_state(track, self.plan, self.winds.atmosphere, self.params0)
             sigma = float(getattr(report, "position_sigma_m", 5.0))
-            end = est.time_s if est.phase != LANDED else est.phase_start_s
+            end = est.time_s
+            if est.phase == LANDED:  # winds only from the airborne fixes: up to the last one above the ground
+                airborne = np.flatnonzero(np.asarray(track.alt_m) > est.alt_m + LAUNCH_RISE_M)
+                end = float(track.time_s[airborne[-1]]) if airborne.size else est.time_s
             obs = wind_observations_from_track(
                 track, sigma, self.wind_window_s, pendulum_amplitude_m=self.pendulum_amplitude_m,
                 start_s=est.launch_time_s if est.launched else est.time_s + 1.0, end_s=end,

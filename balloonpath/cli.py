@@ -22,6 +22,8 @@ COMMAND_MODULES: tuple[str, ...] = (
     "checklist",
     "verify",
     "chase",
+    "batch",
+    "windows",
 )
 
 app = typer.Typer(

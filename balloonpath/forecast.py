@@ -171,34 +171,46 @@ def fly_nominal(plan: Plan, winds: LoadedWinds, launch_time_s: float | None = No
 
 
 def set_corridor(field: UncertainWindField, plan: Plan, nominal: Trajectories,
-                 extra_time_s: float = 0.0) -> None:
-    """Tell the field where realisations will be evaluated: around the nominal flight.
+                 extra_time_s: float = 0.0) -> UncertainWindField:
+    """The field whose sample corridor covers the nominal flight (+ margins); ``field`` is not changed.
 
     ``extra_time_s`` widens the time range (a launch-window sweep covers all its launch times at once).
+    Fields without ``with_corridor`` are returned as they are. Use the returned field for
+    :func:`draw_member_winds` (``dataclasses.replace(winds, field=...)``).
     """
     if not hasattr(field, "with_corridor"):
-        return
+        return field
     lats = np.concatenate([[plan.launch.latitude], nominal.tracks["lat"][0]])
     lons = np.concatenate([[plan.launch.longitude], nominal.tracks["lon"][0]])
     lats, lons = lats[np.isfinite(lats)], lons[np.isfinite(lons)]
     dlat = math.degrees(CORRIDOR_MARGIN_M / 6.371e6)
     dlon = dlat / max(math.cos(math.radians(float(np.mean(lats)))), 0.05)
     top = float(np.nanmax(nominal.max_alt_m))
-    field.with_corridor(
+    out = field.with_corridor(
         float(lats.min() - dlat), float(lats.max() + dlat), float(lons.min() - dlon), float(lons.max() + dlon),
         alt_max_m=top * 1.25 + 1000.0,
         time_min_s=float(np.nanmin(nominal.tracks["time_s"][0]) - 3600.0),
         time_max_s=float(nominal.landing_time_s[0] + CORRIDOR_MARGIN_S + extra_time_s),
     )
+    return out if out is not None else field
 
 
-def draw_member_winds(winds: LoadedWinds, n_members: int, seed: int) -> MemberWinds:
-    """Wind realisations for members 0..n-1 (member 0 flies the mean), from the seed's wind stream.
+def draw_member_winds(winds: LoadedWinds, n_members: int, seed: int,
+                      member_ids: np.ndarray | None = None) -> MemberWinds:
+    """Wind realisations for members 0..n-1 (member 0 flies the mean), one random stream per member.
 
-    Call :func:`set_corridor` first when the field needs a corridor.
+    Fields with ``sample_members`` (the GP fields) draw member i from its own stream
+    (``gp_sample.member_wind_generator(seed, i)``), so a chunk ``member_ids`` of the ensemble of
+    ``n_members`` (the Dask engine, :mod:`balloonpath.scale`) gets exactly the realisations the whole
+    ensemble would. Other fields draw all members from the seed's wind stream. Use the field returned by
+    :func:`set_corridor`.
     """
+    field = winds.field
+    if hasattr(field, "sample_members"):
+        ids = np.arange(n_members) if member_ids is None else np.asarray(member_ids, dtype=int)
+        return _NominalFirst(field, field.sample_members(ids, seed, n_total=n_members))
     rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(2**32 - 1,)))
-    return _NominalFirst(winds.field, winds.field.sample(n_members, rng))
+    return _NominalFirst(field, field.sample(n_members, rng))
 
 
 def run_forecast(
@@ -257,8 +269,8 @@ def run_forecast(
             delays = np.concatenate([[0.0], f.launch_delay_s])
             if member_winds is None:
                 if ens.wind_uncertainty:
-                    set_corridor(winds.field, plan, nominal)
-                    member_winds = draw_member_winds(winds, n, s)
+                    field_c = set_corridor(winds.field, plan, nominal)
+                    member_winds = draw_member_winds(dataclasses.replace(winds, field=field_c), n, s)
                 else:
                     member_winds = MeanMemberWinds(winds.field, n)
             state = State.at_launch(

@@ -292,8 +292,12 @@ def parse_aprs_line(line: str) -> tuple[str, dict[str, Any] | None]:
     return "ok", fix
 
 
-def _clean(fixes: _Fixes, report: ReadReport, source: str) -> FlownTrack:
-    """Sort, drop duplicate times and implausible jumps; count out-of-order lines and gaps."""
+def _clean(fixes: _Fixes, report: ReadReport, source: str, slack_m: float = 100.0) -> FlownTrack:
+    """Sort, drop duplicate times and implausible jumps; count out-of-order lines and gaps.
+
+    A jump is implausible when the distance from the last kept fix exceeds the fastest plausible speed times
+    the interval plus ``slack_m`` (the format's rounding: positions rounded to 0.01 deg jump by a cell).
+    """
     t = np.asarray(fixes.time_s, dtype=float)
     lat = np.asarray(fixes.lat, dtype=float)
     lon = np.asarray(normalize_longitude(np.asarray(fixes.lon, dtype=float)), dtype=float)
@@ -312,7 +316,7 @@ def _clean(fixes: _Fixes, report: ReadReport, source: str) -> FlownTrack:
     for i in range(1, t.size):  # sequential by nature: each fix is judged against the last good one
         dt = t[i] - t[last]
         dist, _ = inverse(lat[last], lon[last], lat[i], lon[i])
-        if float(dist) > MAX_HORIZONTAL_SPEED_M_S * dt + 100.0 or abs(alt[i] - alt[last]) > (
+        if float(dist) > MAX_HORIZONTAL_SPEED_M_S * dt + slack_m or abs(alt[i] - alt[last]) > (
             MAX_VERTICAL_SPEED_M_S * dt + 50.0
         ):
             keep[i] = False
@@ -478,7 +482,7 @@ def read_dwd_track(path: str | Path) -> tuple[FlownTrack, ReadReport]:
     fixes = _Fixes()
     for i in range(len(flown)):
         fixes.add(float(flown.time_s[i]), float(flown.lat[i]), float(flown.lon[i]), float(flown.alt_m[i]))
-    track = _clean(fixes, report, f"{path.name} (dwd)")
+    track = _clean(fixes, report, f"{path.name} (dwd)", slack_m=100.0 + 2.0 * DWD_RESOLUTION_M)
     if len(track) == 0:
         raise _no_fixes(path, report)
     return track, report

@@ -658,8 +658,7 @@ def verify_flight(plan: Any, flown: FlownTrack, members: int | None = None, seed
         t0 = launch_time_s if launch_time_s is not None else launch_time_from_track(
             flown, plan.launch.elevation_m, float(params.ascent_rate_m_s[0]))
         result = run_forecast(plan, members=members, seed=seed, winds=winds, launch_time_s=t0)
-        for w in result.warnings:
-            log.messages.append(w) if w not in log.messages else None
+        log.messages.extend(w for w in result.warnings if w not in log.messages)
         zones = compute_zones(result)
         ev = flight_events(flown.alt_m)
         fl_lat, fl_lon = float(flown.lat[ev.landing]), float(flown.lon[ev.landing])
@@ -672,7 +671,6 @@ def verify_flight(plan: Any, flown: FlownTrack, members: int | None = None, seed
         dist, bearing = inverse(fc_lat, fc_lon, fl_lat, fl_lon)
         dist, bearing = float(dist), float(bearing)
         east, north = dist * math.sin(math.radians(bearing)), dist * math.cos(math.radians(bearing))
-        t_fl0 = t0
         nominal = result.nominal
         fev = flight_events(nominal.alt_m)
         b_alt = float(result.burst.alt_m[0])
@@ -689,7 +687,7 @@ def verify_flight(plan: Any, flown: FlownTrack, members: int | None = None, seed
         asc_fl = band_speeds(tt[: ev.burst + 1], tz[: ev.burst + 1], edges, True)
         des_fc = band_speeds(ft[fev.burst:], fz[fev.burst:], edges, False)
         des_fl = band_speeds(tt[ev.burst:], tz[ev.burst:], edges, False)
-        minutes, err = track_error_vs_time(ft, nominal.lat, nominal.lon, flown, result.launch_time_s, t_fl0)
+        minutes, err = track_error_vs_time(ft, nominal.lat, nominal.lon, flown, result.launch_time_s, t0)
 
         proj = zones.projection()
         tx, ty = proj.to_local(fl_lat, fl_lon)

@@ -15,6 +15,7 @@ difference < 50 m.
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import time
 from pathlib import Path
 
@@ -23,7 +24,7 @@ from scipy.integrate import solve_ivp
 
 from balloonpath.ensemble import State, draw_member_factors, integrate
 from balloonpath.flight.phases import ASCENT, DESCENT
-from balloonpath.flight.vertical import perturbed, vertical_params_from_plan, vertical_speed_m_s
+from balloonpath.flight.vertical import perturbed, vertical_speed_m_s
 from balloonpath.forecast import draw_member_winds, fly_nominal, load_winds, set_corridor
 from balloonpath.geodesy import inverse, radii_of_curvature
 from balloonpath.plan import load_plan
@@ -75,7 +76,7 @@ def main() -> None:
     t0 = plan.launch_time_s
     t = time.perf_counter()
     nominal, params0 = fly_nominal(plan, winds)
-    set_corridor(winds.field, plan, nominal)
+    winds = dataclasses.replace(winds, field=set_corridor(winds.field, plan, nominal))
     member_winds = draw_member_winds(winds, n, plan.ensemble.seed)
     t_draw = time.perf_counter() - t
     ens = plan.ensemble

@@ -53,11 +53,12 @@ def main() -> None:
     print(f"scenario: {PLAN.parent.name}; {n} launch times {iso_from_posix(start)} .. {iso_from_posix(end)} "
           f"every {args.every}; {args.members} members each ({n * args.members} flights)")
     print(f"wind load (once, not in the sweep): {load_wall:7.2f} s wall, {load_cpu:7.2f} s CPU")
-    print(f"  nominal flights (1 call, {n} rows): {t.nominal_s:7.2f} s")
-    print(f"  wind realisations (1 draw):        {t.draw_s:7.2f} s")
-    print(f"  member flights (stacked):          {t.members_s:7.2f} s")
-    print(f"  zones + sun + score, all times:    {sum(t.zones_s):7.2f} s "
-          f"({sum(t.zones_s) / n:.3f} s per launch time)")
+    c = t.cpu
+    print(f"  nominal flights (1 call, {n} rows): {t.nominal_s:7.2f} s wall, {c['nominal']:7.2f} s CPU")
+    print(f"  wind realisations (1 draw):        {t.draw_s:7.2f} s wall, {c['draw']:7.2f} s CPU")
+    print(f"  member flights (stacked):          {t.members_s:7.2f} s wall, {c['members']:7.2f} s CPU")
+    print(f"  zones + sun + score, all times:    {sum(t.zones_s):7.2f} s wall, {c['zones']:7.2f} s CPU "
+          f"({sum(t.zones_s) / n:.3f} s wall per launch time)")
     print(f"sweep total: {wall:7.2f} s wall, {cpu:7.2f} s CPU (target <= 20 s)")
     print(f"time per launch time: {wall / n:.3f} s wall, {cpu / n:.3f} s CPU")
     print(f"fit launch times: {sweep.n_fit} of {n}; time-varying field: {sweep.time_varying}")

@@ -273,9 +273,12 @@ def test_cli_replay_end_to_end(tmp_path: Path) -> None:
     _plan(tmp_path, PLAN.replace("members = 60", "members = 12"))
     _write_flight_csv(tmp_path / "flight.csv")
     out = tmp_path / "out"
-    code = main(["chase", str(tmp_path / "plan.toml"), "--replay", str(tmp_path / "flight.csv"), "--speed", "0",
-                 "--every", "300", "--max-updates", "3", "--crew", "-47.2,8.4", "--out", str(out)])
-    assert code == 0
+    args = ["chase", str(tmp_path / "plan.toml"), "--replay", str(tmp_path / "flight.csv"), "--speed", "0",
+            "--every", "300", "--max-updates", "3", "--crew", "-47.2,8.4", "--out"]
+    assert main([*args, str(out)]) == 0
+    assert main([*args, str(tmp_path / "again")]) == 0
+    for name in ("chase.geojson", "chase.kml", "chase.json"):  # same inputs and seed: same bytes
+        assert (out / name).read_bytes() == (tmp_path / "again" / name).read_bytes()
     summary = json.loads((out / "chase.json").read_text())
     assert summary["state"]["phase_name"] == "ascent"
     assert summary["telemetry"]["skipped"] == {"bad_time": 1, "duplicate": 1, "malformed": 1}

@@ -148,3 +148,74 @@ def test_pairing_window_rejects_stale_pairs(tmp_path) -> None:
     _, ok2, counts2 = quality_control(states, None, QCConfig())
     assert counts["stale_pair"] > counts2["stale_pair"]
     assert ok.sum() < ok2.sum()
+
+
+def test_order_statistics_match_numpy_with_a_tiny_cap() -> None:
+    # Streaming selection (histogram narrowing, 16 values held at once) against numpy's sort and median.
+    from balloonpath.winds.aircraft import _order_statistics, _stream_median_mad
+
+    rng = np.random.default_rng(7)
+    data = np.concatenate([rng.standard_t(2, 3001), np.zeros(40), np.full(25, 3.5)])
+    chunks = np.array_split(data, 13)
+    ranks = [0, 1499, 1500, 3065]
+    assert _order_statistics(lambda: iter(chunks), ranks, cap=16) == [float(np.sort(data)[r]) for r in ranks]
+    med, mad = _stream_median_mad(lambda: iter(chunks), data.size, cap=16)
+    assert med == float(np.median(data))
+    assert mad == float(np.median(np.abs(data - np.median(data))))
+
+
+def test_windowed_derivation_equals_in_memory(tmp_path, monkeypatch) -> None:
+    # Tiny windows (90 s of message time), reader chunks, spill chunks and median buffer force every
+    # streaming path; the result must be the in-memory QC + super-observations up to summation order.
+    from balloonpath.winds import aircraft
+
+    traffic = simulate_traffic(ShearField(), 46.5, 9.0, T0, 480.0, np.random.default_rng(53), n_aircraft=10,
+                               heading_bias_fraction=0.5, meteo_fraction=0.3)
+    path, _ = write_raw_messages(traffic, tmp_path / "raw.csv", np.random.default_rng(54),
+                                 corrupt_fraction=0.002)
+    states = read_raw_messages(path, ReadCounts())
+    states = states.select(np.isfinite(states.alt_m))
+    corrected, ok, qc = quality_control(states)
+    expected = aircraft.superobservations(corrected.select(ok))
+    monkeypatch.setattr(aircraft, "RAW_CHUNK_ROWS", 37)
+    monkeypatch.setattr(aircraft, "SPILL_CHUNK_ROWS", 101)
+    monkeypatch.setattr(aircraft, "SELECT_CAP", 64)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DataQualityWarning)  # the corrupted frames
+        obs, report = derive_observations(path, window_s=90.0)
+    assert report.rows == len(states) and report.accepted == int(ok.sum())
+    assert (report.stale_pair, report.turning, report.outlier) == (qc["stale_pair"], qc["turning"], qc["outlier"])
+    assert report.heading_bias_aircraft == len(qc["heading_bias_deg"]) >= 1
+    for name, bias in report.heading_bias_deg:
+        assert bias == pytest.approx(qc["heading_bias_deg"][name], abs=1e-9)
+    assert len(obs) == len(expected) and list(obs.source) == list(expected.source)
+    for f in ("time_s", "lat", "lon", "alt_m", "u", "v", "sigma"):
+        np.testing.assert_allclose(getattr(obs, f), getattr(expected, f), rtol=1e-12, atol=1e-9)
+
+
+def test_window_screen_sees_neighbours_across_window_edges() -> None:
+    # Track-rate turning test (rows without roll) on three aircraft turning across 30 s window edges:
+    # the windowed screen must give every row the status the whole table gives.
+    from balloonpath.winds.aircraft import AircraftStates, _WindowScreen, screen_states
+
+    rng = np.random.default_rng(61)
+    n = 180
+    t = T0 + np.sort(rng.uniform(0.0, 300.0, n))
+    ac = rng.choice(np.array(["A1", "B2", "C3"], dtype=object), n)
+    track = np.where(ac == "A1", 0.6, np.where(ac == "B2", 0.3, 0.0)) * (t - T0) % 360.0
+    track = np.where((ac == "C3") & (t > T0 + 120), track + 40.0, track)  # a sudden turn at an edge
+    states = AircraftStates.from_columns({
+        "time_s": t, "aircraft": list(ac), "lat": np.full(n, 46.5), "lon": np.full(n, 9.0),
+        "alt_m": np.full(n, 10_000.0), "ground_speed_m_s": np.full(n, 240.0), "track_deg": track,
+        "true_airspeed_m_s": np.full(n, 230.0), "heading_true_deg": track, "pair_age_s": np.zeros(n),
+        "kind": [0] * n, "source": ["test"] * n})
+    whole = screen_states(states, QCConfig())
+    assert 0 < np.sum(whole == 3) < n
+    seen: list[tuple[np.ndarray, np.ndarray]] = []
+    screen = _WindowScreen(QCConfig(), 30.0, lambda s, status: seen.append((s.time_s, status)))
+    for part in np.array_split(np.arange(n), 11):  # arrives in chunks; watermark = oldest time still to come
+        screen.add(states.select(part), float(t[part[-1] + 1]) if part[-1] + 1 < n else np.inf)
+    screen.finish()
+    got = dict(zip(np.concatenate([a for a, _ in seen]), np.concatenate([b for _, b in seen]), strict=True))
+    assert len(got) == n
+    assert [got[x] for x in t] == list(whole)

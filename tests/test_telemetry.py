@@ -163,6 +163,7 @@ def test_dwd_file_as_track() -> None:
     assert np.median(np.diff(track.time_s)) == pytest.approx(2.0)
     assert 300.0 < report.position_sigma_m < 340.0  # 0.01 deg rounding / sqrt(12) plus GPS noise
     assert track.alt_m.max() > 30_000.0
+    assert report.total_skipped == 0  # the 0.01 deg rounding steps are not taken for jumps
 
 
 def test_follower_reads_growing_file(tmp_path: Path) -> None:

@@ -11,7 +11,7 @@ import typer
 from rich.console import Console
 from rich.table import Table
 
-from balloonpath.errors import input_error
+from balloonpath.errors import BalloonpathError, input_error
 from balloonpath.plan import load_plan
 
 CAUTION = (
@@ -46,7 +46,8 @@ def _panel(update: Any) -> Table:
     if update.crew_distance_m is not None:
         table.add_row("From crew", f"{update.crew_distance_m / 1000:.1f} km, bearing {update.crew_bearing_deg:.0f} deg")
     if update.read_report is not None:
-        table.add_row("Telemetry", f"{update.read_report.fixes} fixes, {update.read_report.total_skipped} skipped")
+        table.add_row("Telemetry", f"{update.state.n_fixes} fixes used, {update.read_report.total_skipped} lines "
+                      "skipped in the file")
     return table
 
 
@@ -139,7 +140,15 @@ def register(app: typer.Typer) -> None:
                 if crew_path is not None:
                     crew_track, _ = read_track(crew_path, callsign=crew_callsign, require_altitude=False)
                     crew_now = crew_position_at(crew_track, float(track.time_s[-1]))
-                update = session.update(track, report, crew=crew_now)
+                try:
+                    update = session.update(track, report, crew=crew_now)
+                except BalloonpathError as exc:
+                    if not (follow or replay is not None):
+                        raise
+                    # a live loop survives one failed update (e.g. the balloon above the wind data)
+                    err.print(f"error: {exc} (update skipped; waiting for the next fix)", style="red",
+                              highlight=False)
+                    continue
                 rewrite_outputs(update, out)
                 n += 1
                 last = update

@@ -43,8 +43,13 @@ def _print_summary(console: Console, written: WrittenForecast) -> None:  # noqa:
 
 
 def forecast_to_folder(plan_file: Path, out: Path, members: int | None, seed: int | None,
-                       report: bool, quiet: bool = False) -> WrittenForecast:  # noqa: F821
-    """Run the forecast with a progress bar and write the folder."""
+                       report: bool, quiet: bool = False, workers: int | None = None,
+                       scheduler: str | None = None) -> WrittenForecast:  # noqa: F821
+    """Run the forecast with a progress bar and write the folder.
+
+    With ``workers`` or ``scheduler`` the members fly on the Dask engine (``balloonpath.scale``); the
+    result is the same as in this process.
+    """
     from balloonpath.forecast import run_forecast, write_outputs
 
     plan = load_plan(plan_file)
@@ -53,8 +58,16 @@ def forecast_to_folder(plan_file: Path, out: Path, members: int | None, seed: in
     with Progress(TextColumn("flying"), BarColumn(), TextColumn("{task.completed}/{task.total} landed"),
                   TimeElapsedColumn(), console=console, transient=True, disable=quiet or n < 200) as bar:
         task = bar.add_task("fly", total=max(n - 1, 1))
-        result = run_forecast(plan, members=members, seed=seed,
-                              progress=lambda done, total: bar.update(task, completed=done, total=total))
+        update = lambda done, total: bar.update(task, completed=done, total=total)  # noqa: E731
+        if workers is None and scheduler is None:
+            result = run_forecast(plan, members=members, seed=seed, progress=update)
+        else:
+            from balloonpath.scale import Engine, run_forecast_engine
+
+            with Engine(workers=workers, scheduler=scheduler) as engine:
+                if not quiet:
+                    console.print(f"engine: {engine.describe()}")
+                result = run_forecast_engine(plan, engine, members=members, seed=seed, progress=update)
     for w in result.warnings:
         console.print(f"warning: {w}", style="yellow")
     return write_outputs(result, plan, out, report=report)
@@ -70,9 +83,15 @@ def register(app: typer.Typer) -> None:
         members: int | None = typer.Option(None, "--members", min=1, help="Ensemble size (plan default)."),
         seed: int | None = typer.Option(None, "--seed", min=0, help="Random seed (plan default)."),
         no_report: bool = typer.Option(False, "--no-report", help="Do not write report.html."),
+        workers: int | None = typer.Option(
+            None, "--workers", min=0,
+            help="Fly the members on N local worker processes (0: all cores; default: in this process)."),
+        scheduler: str | None = typer.Option(
+            None, "--scheduler", help="Fly the members on a running Dask scheduler (e.g. tcp://host:8786)."),
     ) -> None:
         """Forecast the flight and landing zones of a plan and write them to a folder."""
-        written = forecast_to_folder(plan_file, out, members, seed, report=not no_report)
+        written = forecast_to_folder(plan_file, out, members, seed, report=not no_report, workers=workers,
+                                     scheduler=scheduler)
         _print_summary(Console(), written)
 
     @app.command("demo")

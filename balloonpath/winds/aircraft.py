@@ -28,8 +28,9 @@ from __future__ import annotations
 
 import csv
 import math
+import tempfile
 import warnings
-from collections.abc import Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path
 
@@ -502,6 +503,242 @@ def _hat_basis(z: np.ndarray, knots: np.ndarray) -> np.ndarray:
     return basis
 
 
+# --------------------------------------------------------------------------------------------------------
+# Robust statistics over a stream of chunks (exact, bounded memory)
+# --------------------------------------------------------------------------------------------------------
+SELECT_CAP = 1 << 20  # values held at once by the streaming median (8 MB); above it, histogram selection
+
+
+def _order_statistics(values: Callable[[], Iterable[np.ndarray]], ranks: Sequence[int],
+                      cap: int | None = None) -> list[float]:
+    """Exact order statistics (0-based ascending ranks) of a re-readable stream of arrays.
+
+    Notes
+    -----
+    Selection by distribution counting (common practice): each pass over ``values()`` keeps the values inside
+    an interval known to hold the wanted ranks, with the count of values below it. While more than ``cap``
+    values fall inside, a 4096-bin histogram of the interval narrows it to the bins holding the ranks; once at
+    most ``cap`` remain they are sorted. Memory is O(cap), independent of the stream's length.
+    """
+    cap = SELECT_CAP if cap is None else cap
+    lo, hi, below = -math.inf, math.inf, 0
+    r_min, r_max = min(ranks), max(ranks)
+    for attempt in range(80):
+        force = attempt >= 64
+        kept: list[np.ndarray] = []
+        n_in, vmin, vmax = 0, math.inf, -math.inf
+        for chunk in values():
+            c = chunk[(chunk >= lo) & (chunk <= hi)]
+            if c.size == 0:
+                continue
+            n_in += c.size
+            vmin, vmax = min(vmin, float(c.min())), max(vmax, float(c.max()))
+            if n_in <= cap or force:
+                kept.append(c)
+            else:
+                kept = []
+        if vmin == vmax and n_in > 0 and not kept:
+            return [vmin] * len(ranks)
+        if n_in <= cap or force:
+            inside = np.sort(np.concatenate(kept)) if kept else np.empty(0)
+            return [float(inside[r - below]) for r in ranks]
+        edges = np.linspace(vmin, vmax, 4097)
+        hist = np.zeros(4096, dtype=np.int64)
+        for chunk in values():
+            hist += np.histogram(chunk[(chunk >= vmin) & (chunk <= vmax)], bins=edges)[0]
+        cum = np.cumsum(hist)
+        b1 = int(np.searchsorted(cum, r_min - below, side="right"))
+        b2 = int(np.searchsorted(cum, r_max - below, side="right"))
+        below += int(cum[b1 - 1]) if b1 > 0 else 0
+        lo, hi = float(edges[b1]), float(edges[min(b2 + 1, 4096)])
+    raise AssertionError("order statistics did not converge")  # pragma: no cover
+
+
+def _stream_median_mad(values: Callable[[], Iterable[np.ndarray]], n: int,
+                       cap: int | None = None) -> tuple[float, float]:
+    """Median and median absolute deviation of ``n`` streamed values (exactly as numpy's median)."""
+    cap = SELECT_CAP if cap is None else cap
+    if n <= cap:
+        both = np.concatenate(list(values()))
+        med = float(np.median(both))
+        return med, float(np.median(np.abs(both - med)))
+
+    def median(source: Callable[[], Iterable[np.ndarray]]) -> float:
+        if n % 2:
+            return _order_statistics(source, [n // 2], cap)[0]
+        a, b = _order_statistics(source, [n // 2 - 1, n // 2], cap)
+        return (a + b) / 2.0
+
+    med = median(values)
+    return med, median(lambda: (np.abs(c - med) for c in values()))
+
+
+# --------------------------------------------------------------------------------------------------------
+# Reference profile and heading biases (fitted over re-readable chunks of rows)
+# --------------------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class _Smooth:
+    """Design of the smooth reference: hat functions in altitude plus scaled east, north and time."""
+
+    knots: np.ndarray
+    lat0: float
+    lon0: float
+    t0: float
+    scales: tuple[float, float, float]
+
+    def offsets(self, lat: np.ndarray, lon: np.ndarray, t: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        x = (((lon - self.lon0 + 180.0) % 360.0) - 180.0) * 111_320.0 * math.cos(math.radians(self.lat0))
+        return x, (lat - self.lat0) * 110_540.0, t - self.t0
+
+    def basis(self, lat: np.ndarray, lon: np.ndarray, z: np.ndarray, t: np.ndarray) -> np.ndarray:
+        x, y, tt = self.offsets(lat, lon, t)
+        side = np.column_stack([x / self.scales[0], y / self.scales[1], tt / self.scales[2]])
+        return np.hstack([_hat_basis(z, self.knots), side])
+
+
+@dataclass(frozen=True)
+class _FitRows:
+    """Rows entering a reference fit: position, residual against the background, bias sensitivity."""
+
+    lat: np.ndarray
+    lon: np.ndarray
+    z: np.ndarray
+    t: np.ndarray
+    du: np.ndarray
+    dv: np.ndarray
+    eu: np.ndarray
+    ev: np.ndarray
+    ac: np.ndarray
+    derived: np.ndarray
+
+    @staticmethod
+    def build(states: AircraftStates, ac: np.ndarray, bg_u: np.ndarray, bg_v: np.ndarray,
+              with_bias: bool) -> _FitRows:
+        u, v = states.winds()
+        keep = np.isfinite(u) & np.isfinite(v)
+        derived = (states.kind == KIND_DERIVED) & with_bias
+        psi = np.radians(np.where(derived, states.heading_true_deg, 0.0))
+        tas = np.where(derived, states.true_airspeed_m_s, 0.0)
+        # Effect of a unit bias (radians) on the derived wind: -TAS (cos psi, -sin psi).
+        eu, ev = -tas * np.cos(psi), tas * np.sin(psi)
+        return _FitRows(states.lat[keep], states.lon[keep], states.alt_m[keep], states.time_s[keep],
+                        (u - bg_u)[keep], (v - bg_v)[keep], eu[keep], ev[keep],
+                        np.asarray(ac)[keep].astype(np.intp), derived[keep])
+
+
+def _huber(resid: np.ndarray, s: float) -> np.ndarray:
+    r = np.abs(resid) / (1.5 * s)
+    return np.where(r <= 1.0, 1.0, 1.0 / np.maximum(r, 1e-12))
+
+
+def _fit_profile(
+    rows: Callable[[], Iterable[_FitRows]], n_aircraft: int, knot_m: float, with_bias: bool,
+    bias_prior_deg: float = 5.0, iterations: int = 40,
+) -> tuple[_Smooth | None, np.ndarray, np.ndarray, dict[int, tuple[float, float, int]]]:
+    """Joint robust fit of the smooth reference and per-aircraft heading biases (see fit_reference).
+
+    ``rows()`` yields the rows in chunks and may be called many times (once per pass); memory is one chunk
+    plus O(p^2 + aircraft). Returns the design, the coefficients per component and
+    ``{aircraft index: (bias_deg, standard_error_deg, n_derived_rows)}``.
+    """
+    n, zmin, zmax, slat, slon, st = 0, math.inf, -math.inf, 0.0, 0.0, 0.0
+    for c in rows():
+        if c.z.size:
+            n += c.z.size
+            zmin, zmax = min(zmin, float(c.z.min())), max(zmax, float(c.z.max()))
+            slat, slon, st = slat + float(np.sum(c.lat)), slon + float(np.sum(c.lon)), st + float(np.sum(c.t))
+    if n == 0:
+        return None, np.zeros(0), np.zeros(0), {}
+    knots = np.arange(np.floor(zmin / knot_m) * knot_m, zmax + knot_m, knot_m)
+    design = _Smooth(knots, slat / n, slon / n, st / n, (1.0, 1.0, 1.0))
+    sums = np.zeros(3)
+    for c in rows():
+        sums += [float(np.sum(a)) for a in design.offsets(c.lat, c.lon, c.t)]
+    means = sums / n
+    squares = np.zeros(3)
+    for c in rows():
+        squares += [float(np.sum((a - m) ** 2)) for a, m in zip(design.offsets(c.lat, c.lon, c.t), means,
+                                                                  strict=True)]
+    scales = tuple(max(float(np.sqrt(s / n)), 1.0) for s in squares)
+    design = _Smooth(knots, design.lat0, design.lon0, design.t0, scales)  # type: ignore[arg-type]
+    p = knots.size + 3
+    delta = np.zeros(n_aircraft)
+    scale = 1.0
+    coef_u, coef_v = np.zeros(p), np.zeros(p)
+    previous: tuple[np.ndarray, np.ndarray, np.ndarray, float] | None = None
+    ridge = np.eye(p) * 1e-9
+    prior = math.radians(bias_prior_deg)
+
+    def weights(c: _FitRows, basis: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        if previous is None:
+            return np.ones(c.z.size), np.ones(c.z.size)
+        pu, pv, pd, ps = previous
+        return (_huber(c.du - basis @ pu - c.eu * pd[c.ac], ps),
+                _huber(c.dv - basis @ pv - c.ev * pd[c.ac], ps))
+
+    def residuals() -> Iterator[np.ndarray]:
+        for c in rows():
+            basis = design.basis(c.lat, c.lon, c.z, c.t)
+            yield np.concatenate([c.du - basis @ coef_u - c.eu * delta[c.ac],
+                                  c.dv - basis @ coef_v - c.ev * delta[c.ac]])
+
+    for _ in range(iterations):
+        # (1) profile given the biases: weighted least squares, per component (p columns only).
+        gu, gv, hu, hv = np.zeros((p, p)), np.zeros((p, p)), np.zeros(p), np.zeros(p)
+        for c in rows():
+            basis = design.basis(c.lat, c.lon, c.z, c.t)
+            wu, wv = weights(c, basis)
+            gu += (basis.T * wu) @ basis
+            gv += (basis.T * wv) @ basis
+            hu += basis.T @ (wu * (c.du - c.eu * delta[c.ac]))
+            hv += basis.T @ (wv * (c.dv - c.ev * delta[c.ac]))
+        coef_u = np.linalg.solve(gu + ridge, hu)
+        coef_v = np.linalg.solve(gv + ridge, hv)
+        # (2) each aircraft's bias given the profile: 1-D weighted least squares with a ridge prior.
+        if with_bias:
+            num, den = np.zeros(n_aircraft), np.zeros(n_aircraft)
+            for c in rows():
+                basis = design.basis(c.lat, c.lon, c.z, c.t)
+                wu, wv = weights(c, basis)
+                ru, rv = c.du - basis @ coef_u, c.dv - basis @ coef_v
+                num += np.bincount(c.ac, weights=wu * c.eu * ru + wv * c.ev * rv, minlength=n_aircraft)
+                den += np.bincount(c.ac, weights=wu * c.eu * c.eu + wv * c.ev * c.ev, minlength=n_aircraft)
+            delta = num / (den + (scale / prior) ** 2)
+        # (3) robust scale of both components' residuals, then the Huber weights of the next pass.
+        _, mad = _stream_median_mad(residuals, 2 * n)
+        scale = max(1.4826 * mad, 0.3)
+        previous = (coef_u, coef_v, delta, scale)
+    biases: dict[int, tuple[float, float, int]] = {}
+    if with_bias:
+        info, count, present = np.zeros(n_aircraft), np.zeros(n_aircraft), np.zeros(n_aircraft)
+        for c in rows():
+            wu, wv = weights(c, design.basis(c.lat, c.lon, c.z, c.t))
+            info += np.bincount(c.ac, weights=wu * c.eu * c.eu + wv * c.ev * c.ev, minlength=n_aircraft)
+            count += np.bincount(c.ac, weights=c.derived.astype(float), minlength=n_aircraft)
+            present += np.bincount(c.ac, minlength=n_aircraft)
+        se = scale / np.sqrt(info + (scale / prior) ** 2)
+        for j in np.nonzero(present)[0]:
+            biases[int(j)] = (math.degrees(delta[j]), math.degrees(se[j]), int(count[j]))
+    return design, coef_u, coef_v, biases
+
+
+def _background_wind(states: AircraftStates, background: WindField | None
+                     ) -> tuple[np.ndarray, np.ndarray] | None:
+    """Background wind at the rows; None (with a warning) when it does not cover them."""
+    n = len(states)
+    if background is None:
+        return np.zeros(n), np.zeros(n)
+    try:
+        bu, bv = background.wind(states.lat, states.lon, states.alt_m, states.time_s)
+    except CoverageError as exc:
+        warnings.warn(f"aircraft winds: background does not cover the reports ({exc}); QC uses a profile "
+                      "fitted to the aircraft winds alone", DataQualityWarning, stacklevel=3)
+        return None
+    return (np.broadcast_to(np.asarray(bu, dtype=float), (n,)).copy(),
+            np.broadcast_to(np.asarray(bv, dtype=float), (n,)).copy())
+
+
 def fit_reference(
     states: AircraftStates, u: np.ndarray, v: np.ndarray, use: np.ndarray,
     background: WindField | None = None, knot_m: float = 1000.0, with_bias: bool = True,
@@ -509,7 +746,8 @@ def fit_reference(
 ) -> tuple[np.ndarray, np.ndarray, dict[str, tuple[float, float, int]]]:
     """Reference wind at every row and per-aircraft heading biases, fitted jointly to the rows in ``use``.
 
-    Returns ``(ref_u, ref_v, {aircraft: (bias_deg, standard_error_deg, n_rows)})``.
+    Returns ``(ref_u, ref_v, {aircraft: (bias_deg, standard_error_deg, n_rows)})``. ``u, v`` must be the
+    winds of ``states`` (kept in the signature for callers; the rows' own winds are used).
 
     Notes
     -----
@@ -523,89 +761,142 @@ def fit_reference(
     the profile. Solved by block-coordinate iteratively reweighted least squares: each of ``iterations``
     passes fits the profile given the biases (a p-column weighted least squares per component), then each
     aircraft's bias given the profile (one-dimensional), then updates Huber weights (k = 1.5 robust scales;
-    scale 1.4826 MAD of the residuals, at least 0.3 m/s). Memory is O(rows x p), never rows x aircraft.
+    scale 1.4826 MAD of the residuals, at least 0.3 m/s). Memory is O(rows x p), never rows x aircraft;
+    the same solver runs over chunks read from disk in :func:`derive_observations` (O(chunk x p)).
     Standard errors are scale / sqrt(sum w TAS^2 + prior), ignoring the small profile covariance.
     Aircraft magnetic tables are often out of date and flux valves drift
     ([deHaan2013], [Jacobs2014]).
     """
+    del u, v
     n = len(states)
-    sel = np.nonzero(use & np.isfinite(u) & np.isfinite(v))[0]
-    bg_u = np.zeros(n)
-    bg_v = np.zeros(n)
-    if background is not None:
-        try:
-            bu, bv = background.wind(states.lat, states.lon, states.alt_m, states.time_s)
-            bg_u = np.broadcast_to(np.asarray(bu, dtype=float), (n,)).copy()
-            bg_v = np.broadcast_to(np.asarray(bv, dtype=float), (n,)).copy()
-        except CoverageError as exc:
-            warnings.warn(f"aircraft winds: background does not cover the reports ({exc}); QC uses a profile "
-                          "fitted to the aircraft winds alone", DataQualityWarning, stacklevel=3)
-    if sel.size == 0:
+    bg = _background_wind(states, background)
+    bg_u, bg_v = bg if bg is not None else (np.zeros(n), np.zeros(n))
+    names, ac = np.unique(states.aircraft.astype(str), return_inverse=True)
+    ac = np.asarray(ac).ravel()
+    use = np.asarray(use, dtype=bool)
+    chunk = _FitRows.build(states.select(use), ac[use], bg_u[use], bg_v[use], with_bias)
+    design, coef_u, coef_v, found = _fit_profile(lambda: [chunk], names.size, knot_m, with_bias,
+                                                 bias_prior_deg, iterations)
+    if design is None:
         return bg_u, bg_v, {}
-    z = states.alt_m
-    knots = np.arange(np.floor(z[sel].min() / knot_m) * knot_m, z[sel].max() + knot_m, knot_m)
-    lat0, lon0 = float(np.mean(states.lat[sel])), float(np.mean(states.lon[sel]))
-    x = (((states.lon - lon0 + 180.0) % 360.0) - 180.0) * 111_320.0 * math.cos(math.radians(lat0))
-    y = (states.lat - lat0) * 110_540.0
-    t = states.time_s - float(np.mean(states.time_s[sel]))
-    scales = [max(float(np.std(a[sel])), 1.0) for a in (x, y, t)]
-    side = np.column_stack([x / scales[0], y / scales[1], t / scales[2]])
-    smooth = np.hstack([_hat_basis(z, knots), side])
-    p = smooth.shape[1]
-    names, ac_idx = np.unique(states.aircraft[sel].astype(str), return_inverse=True)
-    ac_idx = np.asarray(ac_idx).ravel()
-    derived_sel = (states.kind[sel] == KIND_DERIVED) & with_bias
-    basis = smooth[sel]
-    psi = np.radians(np.where(derived_sel, states.heading_true_deg[sel], 0.0))
-    tas = np.where(derived_sel, states.true_airspeed_m_s[sel], 0.0)
-    # Effect of a unit bias (radians) on the derived wind: -TAS (cos psi, -sin psi).
-    eu, ev = -tas * np.cos(psi), tas * np.sin(psi)
-    du, dv = u[sel] - bg_u[sel], v[sel] - bg_v[sel]
-    delta = np.zeros(names.size)
-    wu = np.ones(sel.size)
-    wv = np.ones(sel.size)
-    scale = 1.0
-    coef_u = np.zeros(p)
-    coef_v = np.zeros(p)
-    ridge = np.eye(p) * 1e-9
+    basis = design.basis(states.lat, states.lon, states.alt_m, states.time_s)
+    return bg_u + basis @ coef_u, bg_v + basis @ coef_v, {str(names[j]): b for j, b in found.items()}
 
-    def huber(resid: np.ndarray, s: float) -> np.ndarray:
-        r = np.abs(resid) / (1.5 * s)
-        return np.where(r <= 1.0, 1.0, 1.0 / np.maximum(r, 1e-12))
 
-    for _ in range(iterations):
-        # (1) profile given the biases: weighted least squares, per component (p columns only).
-        bu = du - eu * delta[ac_idx]
-        bv = dv - ev * delta[ac_idx]
-        coef_u = np.linalg.solve((basis.T * wu) @ basis + ridge, basis.T @ (wu * bu))
-        coef_v = np.linalg.solve((basis.T * wv) @ basis + ridge, basis.T @ (wv * bv))
-        ru = du - basis @ coef_u
-        rv = dv - basis @ coef_v
-        # (2) each aircraft's bias given the profile: 1-D weighted least squares with a ridge prior.
-        prior_w = (scale / math.radians(bias_prior_deg)) ** 2
-        if with_bias:
-            num = np.bincount(ac_idx, weights=wu * eu * ru + wv * ev * rv, minlength=names.size)
-            den = np.bincount(ac_idx, weights=wu * eu * eu + wv * ev * ev, minlength=names.size) + prior_w
-            delta = num / den
-        resid_u = ru - eu * delta[ac_idx]
-        resid_v = rv - ev * delta[ac_idx]
-        both = np.concatenate([resid_u, resid_v])
-        scale = max(1.4826 * float(np.median(np.abs(both - np.median(both)))), 0.3)
-        wu, wv = huber(resid_u, scale), huber(resid_v, scale)
-    biases: dict[str, tuple[float, float, int]] = {}
-    if with_bias:
-        info = np.bincount(ac_idx, weights=wu * eu * eu + wv * ev * ev, minlength=names.size)
-        counts = np.bincount(ac_idx, weights=derived_sel.astype(float), minlength=names.size)
-        se = scale / np.sqrt(info + (scale / math.radians(bias_prior_deg)) ** 2)
-        for j, name in enumerate(names):
-            biases[str(name)] = (math.degrees(delta[j]), math.degrees(se[j]), int(counts[j]))
-    return bg_u + smooth @ coef_u, bg_v + smooth @ coef_v, biases
+# --------------------------------------------------------------------------------------------------------
+# Quality control
+# --------------------------------------------------------------------------------------------------------
+SCREEN_RULES = ("stale_pair", "implausible_speed", "turning", "wind_too_strong")
+TRACK_RATE_GAP_S = 60.0  # neighbours further apart than this give no track rate
+
+
+def screen_states(states: AircraftStates, config: QCConfig | None = None,
+                  track_rate_deg_s: np.ndarray | None = None) -> np.ndarray:
+    """Row-local QC rules: 0 where a row passes, k where it first fails ``SCREEN_RULES[k - 1]``.
+
+    ``track_rate_deg_s`` is the rate from consecutive rows (default: :func:`track_rate_from_sequence` on
+    ``states``); a row's own BDS 5,0 rate takes precedence.
+    """
+    cfg = config or QCConfig()
+    derived = states.kind == KIND_DERIVED
+    status = np.zeros(len(states), dtype=np.int8)
+
+    def apply(k: int, bad: np.ndarray) -> None:
+        status[(status == 0) & np.asarray(bad, dtype=bool)] = k
+
+    apply(1, derived & (states.pair_age_s > cfg.max_pair_age_s))
+    with np.errstate(invalid="ignore"):
+        apply(2, derived & (
+            (states.true_airspeed_m_s < cfg.min_true_airspeed_m_s)
+            | (states.true_airspeed_m_s > cfg.max_true_airspeed_m_s)
+            | (states.ground_speed_m_s > cfg.max_ground_speed_m_s) | (states.ground_speed_m_s < 0)))
+        sequence = track_rate_from_sequence(states, TRACK_RATE_GAP_S) if track_rate_deg_s is None \
+            else track_rate_deg_s
+        rate = np.where(np.isfinite(states.track_rate_deg_s), np.abs(states.track_rate_deg_s), sequence)
+        apply(3, derived & ((np.abs(states.roll_deg) > cfg.max_roll_deg) | (rate > cfg.max_track_rate_deg_s)))
+        u, v = states.winds()
+        apply(4, ~np.isfinite(u) | ~np.isfinite(v) | (np.hypot(u, v) > cfg.max_wind_m_s))
+    return status
+
+
+@dataclass(frozen=True)
+class _QCFit:
+    bias_deg: np.ndarray  # per aircraft index; 0 where not corrected
+    design: _Smooth | None
+    coef_u: np.ndarray
+    coef_v: np.ndarray
+    median: tuple[float, float]
+    scale: tuple[float, float]
+
+
+def _correct_heading(states: AircraftStates, ac: np.ndarray, bias_deg: np.ndarray) -> AircraftStates:
+    rows = (states.kind == KIND_DERIVED) & (bias_deg[ac] != 0.0)
+    if not np.any(rows):
+        return states
+    heading = states.heading_true_deg.copy()
+    heading[rows] = (heading[rows] - bias_deg[ac[rows]]) % 360.0
+    return AircraftStates(**{**{f.name: getattr(states, f.name) for f in fields(states)},
+                             "heading_true_deg": heading})
+
+
+def _residual(states: AircraftStates, bg_u: np.ndarray, bg_v: np.ndarray, fit: _QCFit
+              ) -> tuple[np.ndarray, np.ndarray]:
+    u, v = states.winds()
+    ru, rv = u - bg_u, v - bg_v
+    if fit.design is not None:
+        basis = fit.design.basis(states.lat, states.lon, states.alt_m, states.time_s)
+        ru, rv = u - (bg_u + basis @ fit.coef_u), v - (bg_v + basis @ fit.coef_v)
+    return ru, rv
+
+
+def _outlier(states: AircraftStates, bg_u: np.ndarray, bg_v: np.ndarray, fit: _QCFit,
+             cfg: QCConfig) -> np.ndarray:
+    ru, rv = _residual(states, bg_u, bg_v, fit)
+    with np.errstate(invalid="ignore"):
+        return ((np.abs(ru - fit.median[0]) / fit.scale[0] > cfg.outlier_z)
+                | (np.abs(rv - fit.median[1]) / fit.scale[1] > cfg.outlier_z))
+
+
+RowChunks = Callable[[], Iterable[tuple[AircraftStates, np.ndarray, np.ndarray, np.ndarray]]]
+
+
+def _qc_fit(chunks: RowChunks, n_aircraft: int, derived_rows: np.ndarray, cfg: QCConfig) -> _QCFit:
+    """Heading biases, reference and outlier statistics from the screened rows.
+
+    ``chunks()`` yields ``(rows, aircraft index, background u, background v)`` for the rows that passed
+    :func:`screen_states`; it is read once per pass (about 8 per robust iteration).
+    """
+    bias = np.zeros(n_aircraft)
+    if cfg.heading_bias and any(np.any(s.kind == KIND_DERIVED) for s, *_ in chunks()):
+        _, _, _, found = _fit_profile(lambda: (_FitRows.build(s, a, bu, bv, True) for s, a, bu, bv in chunks()),
+                                      n_aircraft, cfg.reference_knot_m, True)
+        for j, (b, se, count) in found.items():
+            if count >= cfg.heading_bias_min_rows and \
+                    abs(b) > max(cfg.heading_bias_min_deg, cfg.heading_bias_sigmas * se) and derived_rows[j]:
+                bias[j] = b
+
+    def corrected() -> Iterator[tuple[AircraftStates, np.ndarray, np.ndarray, np.ndarray]]:
+        for s, a, bu, bv in chunks():
+            yield _correct_heading(s, a, bias), a, bu, bv
+
+    design, coef_u, coef_v, _ = _fit_profile(
+        lambda: (_FitRows.build(s, a, bu, bv, False) for s, a, bu, bv in corrected()),
+        n_aircraft, cfg.reference_knot_m, False)
+    fit = _QCFit(bias, design, coef_u, coef_v, (0.0, 0.0), (1.0, 1.0))
+    n = sum(len(s) for s, *_ in chunks())
+    median, scale = [0.0, 0.0], [1.0, 1.0]
+    if n:
+        for k in (0, 1):
+            med, mad = _stream_median_mad(
+                lambda k=k: (_residual(s, bu, bv, fit)[k] for s, _, bu, bv in corrected()), n)
+            median[k], scale[k] = med, max(1.4826 * mad, cfg.outlier_scale_floor_m_s)
+    return _QCFit(bias, design, coef_u, coef_v, (median[0], median[1]), (scale[0], scale[1]))
 
 
 def quality_control(
     states: AircraftStates, background: WindField | None = None, config: QCConfig | None = None,
 ) -> tuple[AircraftStates, np.ndarray, dict]:
-    """Screen aircraft states; correct per-aircraft heading bias.
+    """Screen aircraft states; correct per-aircraft heading bias (all rows in memory).
 
     Returns the states (headings corrected), a boolean accepted mask, and counts per rule plus the
     detected biases (``{"stale_pair": int, ..., "heading_bias_deg": {aircraft: deg}}``).
@@ -616,67 +907,92 @@ def quality_control(
     implausible speed (TAS outside [min, max] or GS > max); turning (|roll| > max_roll_deg or track rate >
     max_track_rate_deg_s, the rate from BDS 5,0 or from consecutive rows); |wind| > max_wind_m_s; then,
     after the heading-bias correction, gross outliers: robust z = (r - median r) / max(1.4826 MAD, floor)
-    of each component of the residual against the reference, rejected when |z| > outlier_z.
+    of each component of the residual against the reference (:func:`fit_reference`), rejected when
+    |z| > outlier_z. :func:`derive_observations` runs the same steps over time windows and a disk spill.
     """
     cfg = config or QCConfig()
-    n = len(states)
-    derived = states.kind == KIND_DERIVED
-    ok = np.ones(n, dtype=bool)
-    counts: dict = {}
-
-    def apply(name: str, bad: np.ndarray) -> None:
-        nonlocal ok
-        bad = np.asarray(bad, dtype=bool) & ok
-        counts[name] = int(bad.sum())
-        ok &= ~bad
-
-    apply("stale_pair", derived & (states.pair_age_s > cfg.max_pair_age_s))
-    with np.errstate(invalid="ignore"):
-        apply("implausible_speed", derived & (
-            (states.true_airspeed_m_s < cfg.min_true_airspeed_m_s)
-            | (states.true_airspeed_m_s > cfg.max_true_airspeed_m_s)
-            | (states.ground_speed_m_s > cfg.max_ground_speed_m_s) | (states.ground_speed_m_s < 0)))
-        rate = np.where(np.isfinite(states.track_rate_deg_s), np.abs(states.track_rate_deg_s),
-                        track_rate_from_sequence(states))
-        apply("turning", derived & ((np.abs(states.roll_deg) > cfg.max_roll_deg)
-                                    | (rate > cfg.max_track_rate_deg_s)))
-        u, v = states.winds()
-        apply("wind_too_strong", ~np.isfinite(u) | ~np.isfinite(v) | (np.hypot(u, v) > cfg.max_wind_m_s))
-
-    biases: dict[str, float] = {}
-    bias_rows = 0
-    if cfg.heading_bias and np.any(ok & derived):
-        _, _, found = fit_reference(states, u, v, ok, background, cfg.reference_knot_m, with_bias=True)
-        heading = states.heading_true_deg.copy()
-        for name, (bias, se, count) in found.items():
-            if count >= cfg.heading_bias_min_rows and \
-                    abs(bias) > max(cfg.heading_bias_min_deg, cfg.heading_bias_sigmas * se):
-                rows = derived & (states.aircraft.astype(str) == name)
-                heading[rows] = (heading[rows] - bias) % 360.0
-                biases[name] = bias
-                bias_rows += int(rows.sum())
-        if biases:
-            states = AircraftStates(**{**{f.name: getattr(states, f.name) for f in fields(states)},
-                                       "heading_true_deg": heading})
-            u, v = states.winds()
-
-    ub, vb, _ = fit_reference(states, u, v, ok, background, cfg.reference_knot_m, with_bias=False)
-    outlier = np.zeros(n, dtype=bool)
+    status = screen_states(states, cfg)
+    counts: dict = {name: int(np.sum(status == k + 1)) for k, name in enumerate(SCREEN_RULES)}
+    ok = status == 0
+    names, ac = np.unique(states.aircraft.astype(str), return_inverse=True)
+    ac = np.asarray(ac).ravel().astype(np.intp)
+    screened = states.select(ok)
+    bg = _background_wind(screened, background)
+    bg_u, bg_v = bg if bg is not None else (np.zeros(len(screened)), np.zeros(len(screened)))
+    derived_rows = np.bincount(ac[states.kind == KIND_DERIVED], minlength=names.size)
+    fit = _qc_fit(lambda: [(screened, ac[ok], bg_u, bg_v)], names.size, derived_rows, cfg)
+    corrected = _correct_heading(states, ac, fit.bias_deg)
+    outlier = np.zeros(len(states), dtype=bool)
     if np.any(ok):
-        for r in (u - ub, v - vb):
-            med = np.median(r[ok])
-            scale = max(1.4826 * float(np.median(np.abs(r[ok] - med))), cfg.outlier_scale_floor_m_s)
-            with np.errstate(invalid="ignore"):
-                outlier |= np.abs(r - med) / scale > cfg.outlier_z
-    apply("outlier", outlier)
-    counts["heading_bias_deg"] = biases
-    counts["heading_bias_rows"] = bias_rows
-    return states, ok, counts
+        outlier[ok] = _outlier(corrected.select(ok), bg_u, bg_v, fit, cfg)
+    counts["outlier"] = int(outlier.sum())
+    ok &= ~outlier
+    biased = np.nonzero(fit.bias_deg)[0]
+    counts["heading_bias_deg"] = {str(names[j]): float(fit.bias_deg[j]) for j in biased}
+    counts["heading_bias_rows"] = int(derived_rows[biased].sum())
+    return corrected, ok, counts
 
 
 # --------------------------------------------------------------------------------------------------------
 # Super-observations
 # --------------------------------------------------------------------------------------------------------
+class _SuperobSums:
+    """Running sums per (source, aircraft, time bin, altitude bin); memory grows with the output only."""
+
+    def __init__(self, cfg: QCConfig) -> None:
+        self.cfg = cfg
+        self.index: dict[tuple, int] = {}
+        self.keys: list[tuple] = []
+        self.sums = np.zeros((9, 0))
+
+    def add(self, states: AircraftStates) -> None:
+        if len(states) == 0:
+            return
+        cfg = self.cfg
+        u, v = states.winds()
+        keys = np.rec.fromarrays([
+            states.source.astype(str), states.aircraft.astype(str),
+            np.floor(states.time_s / cfg.superob_time_s).astype(np.int64),
+            np.floor(states.alt_m / cfg.superob_alt_m).astype(np.int64),
+        ])
+        unique, group = np.unique(keys, return_inverse=True)
+        group = np.asarray(group).ravel()
+        target = np.empty(unique.size, dtype=np.intp)
+        for j, key in enumerate(unique.tolist()):
+            i = self.index.get(key)
+            if i is None:
+                i = self.index[key] = len(self.keys)
+                self.keys.append(key)
+            target[j] = i
+        if len(self.keys) > self.sums.shape[1]:
+            grown = np.zeros((9, max(2 * self.sums.shape[1], len(self.keys), 64)))
+            grown[:, :self.sums.shape[1]] = self.sums
+            self.sums = grown
+        lon_r = np.radians(states.lon)
+        columns = (np.ones(len(states)), states.time_s, states.lat, np.sin(lon_r), np.cos(lon_r), states.alt_m,
+                   u, v, observation_sigma_m_s(states.alt_m, states.kind))
+        for row, x in enumerate(columns):
+            self.sums[row, target] += np.bincount(group, weights=x, minlength=unique.size)
+
+    def result(self) -> WindObservations:
+        m = len(self.keys)
+        if m == 0:
+            return WindObservations.empty()
+        s = self.sums[:, :m]
+        count = s[0]
+        time_s, lat, sin_lon, cos_lon, alt, u, v, sigma_row = (s[k] / count for k in range(1, 9))
+        lon = np.degrees(np.arctan2(sin_lon, cos_lon))
+        rho = self.cfg.superob_correlated_fraction
+        sigma = sigma_row * np.sqrt(rho + (1.0 - rho) / count)
+        source = np.array([k[0] for k in self.keys], dtype=object)
+        aircraft = np.array([k[1] for k in self.keys])
+        order = np.lexsort((alt, aircraft, time_s))
+        return WindObservations(
+            time_s[order], lat[order], ((lon + 180.0) % 360.0 - 180.0)[order], alt[order], u[order], v[order],
+            sigma[order], source[order],
+        )
+
+
 def superobservations(states: AircraftStates, config: QCConfig | None = None) -> WindObservations:
     """Average accepted rows per (source, aircraft, time bin, altitude bin) into super-observations.
 
@@ -688,43 +1004,79 @@ def superobservations(states: AircraftStates, config: QCConfig | None = None) ->
     calibration errors of one aircraft do not average out; rho = 0.5 is our choice, not a published value).
     Longitude is averaged as a circular mean. Output is sorted by time, then aircraft and altitude.
     """
-    cfg = config or QCConfig()
-    if len(states) == 0:
-        return WindObservations.empty()
-    u, v = states.winds()
-    sigma_row = observation_sigma_m_s(states.alt_m, states.kind)
-    keys = np.rec.fromarrays([
-        states.source.astype(str), states.aircraft.astype(str),
-        np.floor(states.time_s / cfg.superob_time_s).astype(np.int64),
-        np.floor(states.alt_m / cfg.superob_alt_m).astype(np.int64),
-    ])
-    _, group = np.unique(keys, return_inverse=True)
-    group = np.asarray(group).ravel()
-    m = int(group.max()) + 1
-    count = np.bincount(group, minlength=m).astype(float)
-
-    def mean(x: np.ndarray) -> np.ndarray:
-        return np.bincount(group, weights=x, minlength=m) / count
-
-    lon_r = np.radians(states.lon)
-    lon = np.degrees(np.arctan2(mean(np.sin(lon_r)), mean(np.cos(lon_r))))
-    rho = cfg.superob_correlated_fraction
-    sigma = mean(sigma_row) * np.sqrt(rho + (1.0 - rho) / count)
-    first = np.zeros(m, dtype=np.int64)
-    first[group[::-1]] = np.arange(len(states))[::-1]
-    source = states.source[first]
-    aircraft = states.aircraft[first].astype(str)
-    time_s, alt = mean(states.time_s), mean(states.alt_m)
-    order = np.lexsort((alt, aircraft, time_s))
-    return WindObservations(
-        time_s[order], mean(states.lat)[order], ((lon + 180.0) % 360.0 - 180.0)[order], alt[order],
-        mean(u)[order], mean(v)[order], sigma[order], np.asarray(source, dtype=object)[order],
-    )
+    sums = _SuperobSums(config or QCConfig())
+    sums.add(states)
+    return sums.result()
 
 
 # --------------------------------------------------------------------------------------------------------
-# Entry point
+# Streaming: time windows for the row-local rules, a disk spill for the file-wide fit
 # --------------------------------------------------------------------------------------------------------
+SPILL_CHUNK_ROWS = 65_536  # rows read back from the spill per chunk (about 8 MB)
+RAW_CHUNK_ROWS = 4096  # decoded rows handed from the raw-message reader at a time
+_SPILL_FLOATS = ("time_s", "lat", "lon", "alt_m", "ground_speed_m_s", "track_deg", "true_airspeed_m_s",
+                 "heading_true_deg", "roll_deg", "track_rate_deg_s", "pair_age_s", "wind_u", "wind_v")
+_SPILL_DTYPE = np.dtype([(name, "<f8") for name in (*_SPILL_FLOATS, "bg_u", "bg_v")]
+                        + [("ac", "<i4"), ("source", "<i2"), ("kind", "i1")])
+
+
+class _WindowScreen:
+    """Applies :func:`screen_states` window by window to a stream of rows in (roughly) time order.
+
+    Windows are ``window_s`` of row time, aligned to multiples of ``window_s``. A window is screened once the
+    stream's watermark (no later row will be older) passes its end by ``TRACK_RATE_GAP_S``, with the rows
+    up to ``TRACK_RATE_GAP_S`` either side as neighbours for the track rate, so the rate of every row is the
+    one the whole file would give. Rows are kept in arrival order (ties in time resolve as in memory).
+    """
+
+    def __init__(self, cfg: QCConfig, window_s: float,
+                 sink: Callable[[AircraftStates, np.ndarray], None]) -> None:
+        self.cfg, self.window_s, self.sink = cfg, float(window_s), sink
+        self.pending: list[tuple[AircraftStates, np.ndarray]] = []
+        self.context: tuple[AircraftStates, np.ndarray] | None = None
+        self.seq = 0
+
+    def add(self, states: AircraftStates, watermark: float) -> None:
+        if len(states):
+            self.pending.append((states, np.arange(self.seq, self.seq + len(states))))
+            self.seq += len(states)
+        while self.pending:
+            tmin = min(float(s.time_s.min()) for s, _ in self.pending)
+            limit = (math.floor(tmin / self.window_s) + 1.0) * self.window_s
+            if watermark < limit + TRACK_RATE_GAP_S:
+                return
+            self._screen(limit)
+
+    def finish(self) -> None:
+        self.add(AircraftStates.from_columns({"time_s": []}), math.inf)
+        self.context = None
+
+    @staticmethod
+    def _join(parts: list[tuple[AircraftStates, np.ndarray]]) -> tuple[AircraftStates, np.ndarray]:
+        states = parts[0][0]
+        for s, _ in parts[1:]:
+            states = states.concat(s)
+        return states, np.concatenate([q for _, q in parts])
+
+    def _screen(self, limit: float) -> None:
+        rows, seq = self._join(self.pending)
+        take = rows.time_s < limit
+        near = ~take & (rows.time_s < limit + TRACK_RATE_GAP_S)
+        parts = ([self.context] if self.context is not None else []) + [(rows.select(take), seq[take]),
+                                                                          (rows.select(near), seq[near])]
+        hood, hood_seq = self._join(parts)
+        order = np.argsort(hood_seq, kind="stable")
+        rate = np.empty(len(hood))
+        rate[order] = track_rate_from_sequence(hood.select(order), TRACK_RATE_GAP_S)
+        n_ctx = len(self.context[0]) if self.context is not None else 0
+        screened = rows.select(take)
+        self.sink(screened, screen_states(screened, self.cfg, rate[n_ctx:n_ctx + len(screened)]))
+        done, done_seq = self._join(parts[:2])
+        keep = done.time_s >= limit - TRACK_RATE_GAP_S
+        self.context = (done.select(keep), done_seq[keep])
+        self.pending = [(rows.select(~take), seq[~take])] if np.any(~take) else []
+
+
 def _is_raw_message_file(path: Path) -> bool:
     with path.open(encoding="utf-8", errors="replace") as handle:
         for line in handle:
@@ -747,8 +1099,9 @@ def derive_observations(
     config: QCConfig | None = None,
     pair_window_s: float | None = None,
     reference: tuple[float, float] | None = None,
+    window_s: float = 1800.0,
 ) -> tuple[WindObservations, QCReport]:
-    """Wind observations from report tables and/or raw Mode-S message files.
+    """Wind observations from report tables and/or raw Mode-S message files, in bounded memory.
 
     Parameters
     ----------
@@ -756,8 +1109,8 @@ def derive_observations(
         Report tables (CSV with a ``time,aircraft,...`` header) or raw messages (CSV ``time,message``); the
         kind is detected from the first line.
     background : WindField, optional
-        Reference for the gross-outlier test and the heading-bias estimate (default: the median of the
-        aircraft winds per 500 m altitude bin).
+        Reference for the gross-outlier test and the heading-bias estimate (default: a smooth profile fitted
+        to the aircraft winds).
     atmosphere : Atmosphere, optional
         The day's air with actual heights for converting pressure altitude (default: standard atmosphere).
     config : QCConfig, optional
@@ -765,6 +1118,9 @@ def derive_observations(
         the air- and ground-velocity pieces of one wind may be).
     reference : (lat, lon), optional
         Receiver position for single-frame CPR decoding of raw messages (within 180 NM).
+    window_s : float
+        Length of the time windows (s of message time) in which the row-local QC rules run; only memory
+        depends on it, not the result.
 
     Returns
     -------
@@ -774,64 +1130,141 @@ def derive_observations(
     ------
     InputDataError
         If no input gives a usable wind.
+
+    Notes
+    -----
+    Same result as :func:`quality_control` then :func:`superobservations` on all rows at once (up to
+    floating-point summation order), with memory independent of the input's length: raw messages are
+    decoded as a stream; rows are screened per time window (:class:`_WindowScreen`); the rows that pass are
+    written to a temporary binary file (about 130 bytes each) from which the file-wide reference and
+    heading-bias fit, the outlier test and the super-observation sums read them back in chunks of
+    ``SPILL_CHUNK_ROWS``. Medians are exact (:func:`_order_statistics`). Details: docs/aircraft-winds.md.
     """
-    from balloonpath.winds.modes import read_raw_messages
+    from balloonpath.winds.modes import iter_raw_message_states
 
     cfg = config or QCConfig()
     if pair_window_s is not None:
         cfg = QCConfig(**{**asdict(cfg), "max_pair_age_s": float(pair_window_s)})
+    if not (math.isfinite(window_s) and window_s > 0):
+        raise input_error(None, "window_s", f"is {window_s}", "give a positive window length in seconds")
     if isinstance(paths, str | Path):
         paths = [paths]
     paths = [Path(p) for p in paths]
     if not paths:
         raise input_error(None, "inputs", "no input files were given", "name report tables or message files")
     counts = ReadCounts()
-    states: AircraftStates | None = None
-    for path in paths:
-        if _is_raw_message_file(path):
-            part = read_raw_messages(path, counts, atmosphere=atmosphere, pair_window_s=cfg.max_pair_age_s,
-                                     reference=reference)
-        else:
-            part = read_report_table(path, counts, atmosphere=atmosphere)
-        states = part if states is None else states.concat(part)
-    assert states is not None
-    if counts.unknown_columns:
-        warnings.warn(f"aircraft reports: ignored unknown columns {', '.join(sorted(counts.unknown_columns))}",
-                      DataQualityWarning, stacklevel=2)
-    skipped = counts.malformed + counts.crc_failed + counts.missing_values
-    if skipped:
-        warnings.warn(f"aircraft reports: skipped {counts.malformed} malformed lines, {counts.crc_failed} with a "
-                      f"bad CRC and {counts.missing_values} with missing or NaN values", DataQualityWarning,
-                      stacklevel=2)
-    states = states.select(np.isfinite(states.alt_m))
-    names = ", ".join(p.name for p in paths)
-    if len(states) == 0:
-        raise input_error(names, "rows", f"no usable wind in {counts.lines} lines",
-                          "give rows with ground speed, track, true airspeed and heading (or a wind), or raw "
-                          "messages with airborne velocity and BDS 5,0/6,0 replies", cls=InputDataError)
-    corrected, ok, qc = quality_control(states, background, cfg)
-    accepted = corrected.select(ok)
-    if len(accepted) == 0:
-        raise input_error(names, "rows", f"all {len(states)} aircraft states failed quality control",
+    names: dict[str, int] = {}
+    sources: dict[str, int] = {}
+    derived_rows: list[int] = []
+    rules = np.zeros(len(SCREEN_RULES), dtype=np.int64)
+    tally = {"rows": 0, "screened": 0}
+    background_ok = [background is not None]
+
+    with tempfile.TemporaryFile(prefix="balloonpath-aircraft-") as spill:
+
+        def sink(states: AircraftStates, status: np.ndarray) -> None:
+            ac = np.array([names.setdefault(a, len(names)) for a in states.aircraft.astype(str).tolist()],
+                          dtype=np.int64)
+            derived_rows.extend([0] * (len(names) - len(derived_rows)))
+            per_aircraft = np.bincount(ac[states.kind == KIND_DERIVED], minlength=len(names))
+            for j in np.nonzero(per_aircraft)[0].tolist():
+                derived_rows[j] += int(per_aircraft[j])
+            tally["rows"] += len(states)
+            rules[:] += np.bincount(status, minlength=len(SCREEN_RULES) + 1)[1:]
+            ok = status == 0
+            if not np.any(ok):
+                return
+            good = states.select(ok)
+            record = np.zeros(len(good), dtype=_SPILL_DTYPE)
+            for name in _SPILL_FLOATS:
+                record[name] = getattr(good, name)
+            if background_ok[0]:
+                bg = _background_wind(good, background)
+                if bg is None:
+                    background_ok[0] = False
+                else:
+                    record["bg_u"], record["bg_v"] = bg
+            record["ac"] = ac[ok]
+            record["source"] = [sources.setdefault(s, len(sources)) for s in good.source.astype(str).tolist()]
+            record["kind"] = good.kind
+            spill.write(record.tobytes())
+            tally["screened"] += len(good)
+
+        screen = _WindowScreen(cfg, window_s, sink)
+        for path in paths:
+            if _is_raw_message_file(path):
+                parts = iter_raw_message_states(path, counts, atmosphere=atmosphere, reference=reference,
+                                                chunk_rows=RAW_CHUNK_ROWS)
+            else:
+                table = read_report_table(path, counts, atmosphere=atmosphere)
+                parts = iter([(table, math.inf)])
+            for part, watermark in parts:
+                screen.add(part.select(np.isfinite(part.alt_m)), watermark)
+            screen.finish()  # the track rate looks at neighbours within one file
+        if counts.unknown_columns:
+            warnings.warn(f"aircraft reports: ignored unknown columns {', '.join(sorted(counts.unknown_columns))}",
+                          DataQualityWarning, stacklevel=2)
+        skipped = counts.malformed + counts.crc_failed + counts.missing_values
+        if skipped:
+            warnings.warn(f"aircraft reports: skipped {counts.malformed} malformed lines, {counts.crc_failed} "
+                          f"with a bad CRC and {counts.missing_values} with missing or NaN values",
+                          DataQualityWarning, stacklevel=2)
+        label = ", ".join(p.name for p in paths)
+        if tally["rows"] == 0:
+            raise input_error(label, "rows", f"no usable wind in {counts.lines} lines",
+                              "give rows with ground speed, track, true airspeed and heading (or a wind), or "
+                              "raw messages with airborne velocity and BDS 5,0/6,0 replies", cls=InputDataError)
+        name_list = np.array(list(names), dtype=object)
+        source_list = np.array(list(sources), dtype=object)
+        use_background = background_ok[0]
+
+        def chunks() -> Iterator[tuple[AircraftStates, np.ndarray, np.ndarray, np.ndarray]]:
+            spill.seek(0)
+            while True:
+                data = spill.read(SPILL_CHUNK_ROWS * _SPILL_DTYPE.itemsize)
+                if not data:
+                    return
+                rec = np.frombuffer(data, dtype=_SPILL_DTYPE)
+                ac = rec["ac"].astype(np.intp)
+                columns = {name: rec[name] for name in _SPILL_FLOATS}
+                states = AircraftStates(**columns, aircraft=name_list[ac], kind=rec["kind"],
+                                        source=source_list[rec["source"]])
+                zero = np.zeros(rec.size)
+                yield (states, ac, rec["bg_u"] if use_background else zero,
+                       rec["bg_v"] if use_background else zero)
+
+        fit = _qc_fit(chunks, len(names), np.asarray(derived_rows), cfg)
+        sums = _SuperobSums(cfg)
+        outliers = 0
+        for states, ac, bg_u, bg_v in chunks():
+            corrected = _correct_heading(states, ac, fit.bias_deg)
+            bad = _outlier(corrected, bg_u, bg_v, fit, cfg)
+            outliers += int(bad.sum())
+            sums.add(corrected.select(~bad))
+    accepted = tally["screened"] - outliers
+    if accepted == 0:
+        raise input_error(label, "rows", f"all {tally['rows']} aircraft states failed quality control",
                           "check units (knots, degrees) and heading_reference, or loosen [winds] QC settings")
-    obs = superobservations(accepted, cfg)
+    obs = sums.result()
+    biased = np.nonzero(fit.bias_deg)[0]
     report = QCReport(
         lines_read=counts.lines, malformed_lines=counts.malformed, crc_failed=counts.crc_failed,
         unverified_address=counts.unverified_address, ambiguous_bds=counts.ambiguous_bds,
         missing_values=counts.missing_values, unpaired=counts.unpaired, short_skipped=counts.short_skipped,
-        unknown_columns=tuple(sorted(counts.unknown_columns)), rows=len(states),
-        stale_pair=qc["stale_pair"], implausible_speed=qc["implausible_speed"], turning=qc["turning"],
-        wind_too_strong=qc["wind_too_strong"], outlier=qc["outlier"], accepted=int(ok.sum()),
-        heading_bias_aircraft=len(qc["heading_bias_deg"]), heading_bias_rows=qc["heading_bias_rows"],
-        heading_bias_deg=tuple(sorted((k, float(b)) for k, b in qc["heading_bias_deg"].items())),
-        aircraft=int(np.unique(states.aircraft.astype(str)).size), superobservations=len(obs),
+        unknown_columns=tuple(sorted(counts.unknown_columns)), rows=tally["rows"],
+        stale_pair=int(rules[0]), implausible_speed=int(rules[1]), turning=int(rules[2]),
+        wind_too_strong=int(rules[3]), outlier=outliers, accepted=accepted,
+        heading_bias_aircraft=int(biased.size),
+        heading_bias_rows=int(sum(derived_rows[j] for j in biased)),
+        heading_bias_deg=tuple(sorted((str(name_list[j]), float(fit.bias_deg[j])) for j in biased)),
+        aircraft=len(names), superobservations=len(obs),
     )
     return obs, report
 
 
 __all__ = [
-    "AircraftStates", "QCConfig", "QCReport", "ReadCounts", "altitude_from_pressure_altitude",
+    "AircraftStates", "QCConfig", "QCReport", "ReadCounts", "SCREEN_RULES", "altitude_from_pressure_altitude",
     "derive_observations", "fit_reference", "heading_and_ground_speed", "observation_sigma_m_s",
-    "quality_control", "read_report_table", "superobservations", "uv_from_direction_speed",
+    "quality_control", "read_report_table", "screen_states", "superobservations", "uv_from_direction_speed",
     "wind_from_triangle",
 ]

@@ -19,8 +19,9 @@ the largest time difference among the velocity pieces: quality control rejects r
 window (default 2 s, ``QCConfig.max_pair_age_s``). Position and altitude must be at most
 ``MAX_POSITION_AGE_S`` old.
 
-Memory: the per-aircraft state is constant in size and the decoder evicts aircraft silent for 5 minutes; the
-output grows with the number of emitted rows (about one per Comm-B heading reply), not with the input.
+Memory: the per-aircraft state is constant in size, aircraft silent for ``MAX_SILENT_S`` are forgotten (the
+pyModeS decoder evicts them after 5 minutes) and rows are handed on in chunks
+(:func:`iter_raw_message_states`), so memory does not grow with the file.
 
 References
 ----------
@@ -55,6 +56,8 @@ from balloonpath.winds.magnetic import declination_deg, true_from_magnetic_headi
 
 MAX_POSITION_AGE_S = 10.0
 MAX_PIECE_AGE_S = 30.0
+MAX_SILENT_S = 600.0  # aircraft not heard for this long are forgotten
+WATERMARK_LAG_S = MAX_PIECE_AGE_S + 30.0  # rows are stamped at most MAX_PIECE_AGE_S before their message
 _SPEED_OF_SOUND_SEA_LEVEL_KT = 661.4788  # a0 = 340.294 m/s [NOAA1976]
 _P0 = 101_325.0
 
@@ -98,7 +101,7 @@ def _angle_diff(a: float, b: float) -> float:
 
 
 class _Aircraft:
-    __slots__ = ("gv", "b50", "heading", "air", "pos", "alt", "heading_used")
+    __slots__ = ("gv", "b50", "heading", "air", "pos", "alt", "heading_used", "last")
 
     def __init__(self) -> None:
         self.gv: tuple[float, float, float] | None = None  # t, gs_kt, track
@@ -108,6 +111,7 @@ class _Aircraft:
         self.pos: tuple[float, float, float] | None = None  # t, lat, lon
         self.alt: tuple[float, float] | None = None  # t, baro altitude ft
         self.heading_used = True
+        self.last = -math.inf  # time of the latest message
 
 
 def _consistent(code: str, fields: dict, ac: _Aircraft, t: float, altitude_ft: float | None) -> bool:
@@ -196,24 +200,51 @@ def read_raw_messages(
     reference: tuple[float, float] | None = None,
     declination_resolution_deg: float = 0.02,
 ) -> AircraftStates:
-    """Decode a raw-message file into aircraft states (streaming; see the module notes for the pairing).
+    """Decode a whole raw-message file into aircraft states in memory (see :func:`iter_raw_message_states`).
+
+    ``pair_window_s`` is recorded only through ``pair_age_s``; QC applies it.
+    """
+    del pair_window_s  # applied in quality control
+    states: AircraftStates | None = None
+    for part, _ in iter_raw_message_states(path, counts, atmosphere=atmosphere, reference=reference,
+                                           declination_resolution_deg=declination_resolution_deg):
+        states = part if states is None else states.concat(part)
+    assert states is not None
+    return states
+
+
+def iter_raw_message_states(
+    path: str | Path,
+    counts: ReadCounts,
+    *,
+    atmosphere: Atmosphere | None = None,
+    reference: tuple[float, float] | None = None,
+    declination_resolution_deg: float = 0.02,
+    chunk_rows: int = 4096,
+    max_silent_s: float = MAX_SILENT_S,
+) -> Iterator[tuple[AircraftStates, float]]:
+    """Decode a raw-message file into aircraft states, streaming (see the module notes for the pairing).
+
+    Yields ``(states, watermark)`` every ``chunk_rows`` emitted rows and once at the end (possibly empty,
+    watermark +inf): no row yielded later has a time before ``watermark`` (message time minus
+    ``WATERMARK_LAG_S``) when the file is in time order. Aircraft not heard for ``max_silent_s`` are
+    forgotten (checked once a minute of message time), so memory is bounded by the traffic in the air.
 
     Counts malformed lines, bad CRC (DF 17/18), Comm-B replies whose address was not seen in ADS-B
     (``unverified_address``: a corrupted DF 20/21 reply yields a wrong address, as its parity is overlaid with
     the address), and ambiguous or inconsistent Comm-B replies (``ambiguous_bds``).
-    ``pair_window_s`` is recorded only through ``pair_age_s``; QC applies it.
     """
     import pyModeS
 
     pipe = pyModeS.PipeDecoder(include_meteo=True)
     craft: dict[str, _Aircraft] = {}
+    next_sweep = -math.inf
     # Compact row storage (8 bytes per number; aircraft ids are shared string objects).
     out: dict[str, Any] = {k: array("d") for k in (
         "time_s", "lat", "lon", "alt_ft", "ground_speed_kt", "track_deg", "true_airspeed_kt",
         "heading_mag", "roll_deg", "track_rate_deg_s", "pair_age_s", "wind_u", "wind_v")}
     out["aircraft"] = []
     out["kind"] = array("b")
-    del pair_window_s  # applied in quality control
 
     def emit(icao: str, ac: _Aircraft, t: float, heading: float, tas_piece: tuple[float, float]) -> None:
         grounds = []
@@ -245,6 +276,14 @@ def read_raw_messages(
         out["kind"].append(KIND_DERIVED)
 
     for t, message in iter_message_lines(path, counts):
+        if len(out["time_s"]) >= chunk_rows:
+            yield _states_from_rows(out, atmosphere, declination_resolution_deg), t - WATERMARK_LAG_S
+            for column in out.values():
+                del column[:]
+        if t >= next_sweep:
+            for icao in [k for k, a in craft.items() if a.last < t - max_silent_s]:
+                del craft[icao]
+            next_sweep = t + 60.0
         result = pipe.decode(message, timestamp=t)
         if "error" in result:
             counts.malformed += 1
@@ -258,6 +297,7 @@ def read_raw_messages(
             ac = craft.get(icao)
             if ac is None:
                 ac = craft[icao] = _Aircraft()
+            ac.last = t
             tc = result.get("typecode") or 0
             if 9 <= tc <= 18:
                 if result.get("altitude") is not None:
@@ -292,6 +332,7 @@ def read_raw_messages(
         ac = craft.get(icao)
         if ac is None:
             ac = craft[icao] = _Aircraft()
+        ac.last = t
         altitude_ft = result.get("altitude")
         if altitude_ft is None and ac.alt is not None:
             altitude_ft = ac.alt[1]
@@ -334,7 +375,7 @@ def read_raw_messages(
             out["wind_v"].append(float(v))
             out["kind"].append(KIND_REPORTED)
 
-    return _states_from_rows(out, atmosphere, declination_resolution_deg)
+    yield _states_from_rows(out, atmosphere, declination_resolution_deg), math.inf
 
 
 def _states_from_rows(out: dict[str, Any], atmosphere: Atmosphere | None,
@@ -364,4 +405,5 @@ def _states_from_rows(out: dict[str, Any], atmosphere: Atmosphere | None,
     })
 
 
-__all__ = ["calibrated_airspeed_kt_from_mach", "iter_message_lines", "read_raw_messages"]
+__all__ = ["calibrated_airspeed_kt_from_mach", "iter_message_lines", "iter_raw_message_states",
+           "read_raw_messages"]
