@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
 
@@ -34,12 +35,12 @@ from balloonpath.geodesy import step_east_north
 from balloonpath.winds.field import MemberWinds
 
 
-class Ground:
+class Ground(Protocol):
     """Anything with ``elevation_m(lat, lon) -> ndarray`` (see :mod:`balloonpath.terrain`)."""
 
-    def elevation_m(self, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:  # pragma: no cover - protocol
+    def elevation_m(self, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
         """Ground elevation above sea level, m."""
-        raise NotImplementedError
+        ...
 
 
 @dataclass(frozen=True)

@@ -352,7 +352,8 @@ class Engine:
                 from distributed import LocalCluster
 
                 self.cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
-                                            host="127.0.0.1", dashboard_address=None)
+                                            host="127.0.0.1", dashboard_address=None,
+                                            scheduler_kwargs={"dashboard": False})
                 self.client = Client(self.cluster)
         except (OSError, TimeoutError) as exc:
             self.close()

@@ -529,7 +529,7 @@ class Verification:
     forecast_landing: tuple[float, float]
     flown_landing: tuple[float, float]
     landing_error_m: float
-    landing_error_bearing_deg: float
+    landing_error_bearing_deg: float  # NaN when the error is under 1 m
     landing_error_east_m: float
     landing_error_north_m: float
     landing_time_error_s: float
@@ -554,7 +554,7 @@ class Verification:
         """JSON-ready dictionary (finite floats rounded, NaN as null)."""
 
         def r(x: float, nd: int = 3) -> float | None:
-            return None if x is None or not math.isfinite(float(x)) else round(float(x), nd)
+            return None if x is None or not math.isfinite(float(x)) else round(float(x), nd) + 0.0
 
         def arr(a: np.ndarray, nd: int = 3) -> list[float | None]:
             return [r(v, nd) for v in np.asarray(a, dtype=float)]
@@ -711,7 +711,7 @@ def verify_flight(plan: Any, flown: FlownTrack, members: int | None = None, seed
             plan=Path(plan.path).name, track_source=flown.source, launch_time_s=float(t0),
             members=result.n_members, seed=result.seed,
             forecast_landing=(fc_lat, fc_lon), flown_landing=(fl_lat, fl_lon),
-            landing_error_m=dist, landing_error_bearing_deg=bearing if dist > 0 else 0.0,
+            landing_error_m=dist, landing_error_bearing_deg=bearing if dist >= 1.0 else float("nan"),
             landing_error_east_m=east, landing_error_north_m=north,
             landing_time_error_s=float(flown.time_s[ev.landing]) - float(result.landing.time_s[0]),
             burst_altitude_error_m=float(flown.alt_m[ev.burst]) - b_alt,
@@ -730,7 +730,8 @@ def summary_lines(ver: Verification) -> list[str]:
     """The readable summary, line by line (plain text; the CLI colours it)."""
     out = [f"Verification of {ver.plan} against {ver.track_source}",
            f"Launch {iso_from_posix(ver.launch_time_s)}, {ver.members} members, seed {ver.seed}", ""]
-    out.append(f"Landing error   {ver.landing_error_m / 1e3:.2f} km toward {ver.landing_error_bearing_deg:.0f} deg "
+    toward = f"{ver.landing_error_bearing_deg:.0f} deg" if math.isfinite(ver.landing_error_bearing_deg) else "-"
+    out.append(f"Landing error   {ver.landing_error_m / 1e3:.2f} km toward {toward} "
                f"(east {ver.landing_error_east_m / 1e3:+.2f} km, north {ver.landing_error_north_m / 1e3:+.2f} km), "
                f"time {ver.landing_time_error_s / 60:+.1f} min")
     out.append(f"Burst error     altitude {ver.burst_altitude_error_m:+.0f} m, time "
@@ -924,7 +925,7 @@ def verify_many(folder: str | Path, out_dir: str | Path, members: int | None = N
     for r in rows:
         ins = r["inside"]
         lines.append(",".join([
-            r["flight"], f"{r['landing_error_m'] / 1e3:.3f}", f"{r['landing_error_bearing_deg']:.1f}",
+            r["flight"], f"{r['landing_error_m'] / 1e3:.3f}", _cell(r["landing_error_bearing_deg"], 1),
             f"{r['burst_altitude_error_m']:.0f}",
             *(str(int(ins.get(f"{p:.2f}", False))) for p in ZONE_PROBABILITIES),
             f"{r['rank']:.4f}", f"{r['energy_score_m'] / 1e3:.3f}", f"{r['crps_distance_m'] / 1e3:.3f}"]))
@@ -933,6 +934,10 @@ def verify_many(folder: str | Path, out_dir: str | Path, members: int | None = N
            "scores_reference": "GneitingRaftery2007"}
     atomic_write_text(out / "many.json", json.dumps(_jsonable(doc), indent=2) + "\n")
     return ManySummary(tuple(rows), agg)
+
+
+def _cell(value: float, decimals: int) -> str:
+    return f"{value:.{decimals}f}" if math.isfinite(value) else ""
 
 
 def _jsonable(obj: Any) -> Any:

@@ -3,7 +3,7 @@
 Generates invented traffic (balloonpath.winds.traffic) at a fixed density (about 250 000 raw-message lines
 per hour of message time, in one-hour blocks) and writes about N lines to a temporary folder, then runs
 `derive_observations` on it in a fresh child process and prints messages per second and the child's peak
-resident memory (resource.getrusage ru_maxrss) next to its resident memory after the imports. Two sizes are
+resident memory (VmHWM from /proc; see _rss_kb) next to its resident memory after the imports. Two sizes are
 run (N/4 and N: one hour and four hours of the same traffic) to show that memory does not grow with the
 length of the recording: messages are decoded as a stream, QC runs per time window, and the rows that pass
 are spilled to a temporary file for the file-wide fit (docs/aircraft-winds.md, "Throughput and memory").
@@ -67,11 +67,15 @@ def generate(path: Path, lines: int, seed: int) -> tuple[int, float]:
     return count, time.perf_counter() - start
 
 
-def _current_rss_kb() -> float:
-    """Resident memory now (kB), from /proc (Linux); the peak so far where /proc is missing."""
+def _rss_kb(field: str) -> float:
+    """``VmRSS`` (now) or ``VmHWM`` (peak) in kB from /proc (Linux); else ru_maxrss.
+
+    ru_maxrss of a child started by fork + exec also counts the parent's pages at the fork (here the traffic
+    generator's), so the peak of this process's own address space, VmHWM, is used where available.
+    """
     try:
         for line in Path("/proc/self/status").read_text().splitlines():
-            if line.startswith("VmRSS:"):
+            if line.startswith(field + ":"):
                 return float(line.split()[1])
     except OSError:
         pass
@@ -86,11 +90,11 @@ def decode_child(path: str) -> None:
     warnings.simplefilter("ignore")
     import pyModeS  # noqa: F401  (imported here so that the baseline includes it)
 
-    baseline_kb = _current_rss_kb()
+    baseline_kb = _rss_kb("VmRSS")
     start = time.perf_counter()
     obs, report = derive_observations(path)
     elapsed = time.perf_counter() - start
-    peak_kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    peak_kb = _rss_kb("VmHWM")
     print(json.dumps({"seconds": elapsed, "lines": report.lines_read, "observations": len(obs),
                       "rows": report.rows, "peak_rss_mb": peak_kb / 1024.0,
                       "baseline_rss_mb": baseline_kb / 1024.0, "qc": report.lines()}))

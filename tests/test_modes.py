@@ -200,10 +200,12 @@ def test_window_screen_sees_neighbours_across_window_edges() -> None:
 
     rng = np.random.default_rng(61)
     n = 180
-    t = T0 + np.sort(rng.uniform(0.0, 300.0, n))
+    t = T0 + np.sort(rng.choice(np.arange(0.0, 300.0), n, replace=False))  # whole seconds: some on edges
     ac = rng.choice(np.array(["A1", "B2", "C3"], dtype=object), n)
     track = np.where(ac == "A1", 0.6, np.where(ac == "B2", 0.3, 0.0)) * (t - T0) % 360.0
-    track = np.where((ac == "C3") & (t > T0 + 120), track + 40.0, track)  # a sudden turn at an edge
+    c3 = np.nonzero(ac == "C3")[0]
+    t[c3[np.searchsorted(t[c3], T0 + 30.0)]] = T0 + 30.0  # a row on the first window edge ...
+    track = np.where((ac == "C3") & (t >= T0 + 30.0), track + 40.0, track)  # ... turning sharply there
     states = AircraftStates.from_columns({
         "time_s": t, "aircraft": list(ac), "lat": np.full(n, 46.5), "lon": np.full(n, 9.0),
         "alt_m": np.full(n, 10_000.0), "ground_speed_m_s": np.full(n, 240.0), "track_deg": track,

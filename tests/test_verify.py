@@ -274,3 +274,10 @@ def test_track_reader_and_many_folder(tmp_path: Path) -> None:
     assert (tmp_path / "out" / "many.csv").read_text().startswith("flight,landing_error_km")
     with pytest.raises(InputDataError, match="contain no flight"):
         find_flights(root / "empty")
+
+
+def test_cli_verify_needs_a_plan_and_a_track(capsys: pytest.CaptureFixture[str]) -> None:
+    from balloonpath.cli import main
+
+    assert main(["verify", "--out", "unused"]) == 2
+    assert "verify: needs a plan and --flown TRACK; fix:" in capsys.readouterr().err

@@ -14,6 +14,10 @@ CAUTION = (
 )
 
 
+def _deg(value: float) -> str:
+    return f"{value:.0f}" if value == value else "-"
+
+
 def _print_many(console: Console, summary: object, out: Path) -> None:
     agg = summary.aggregate  # type: ignore[attr-defined]
     table = Table(title="Verification over flights (flown minus forecast)")
@@ -22,7 +26,7 @@ def _print_many(console: Console, summary: object, out: Path) -> None:
         table.add_column(name, justify="right" if name != "flight" else "left")
     for r in summary.rows:  # type: ignore[attr-defined]
         ins = r["inside"]
-        table.add_row(r["flight"], f"{r['landing_error_m'] / 1e3:.2f}", f"{r['landing_error_bearing_deg']:.0f}",
+        table.add_row(r["flight"], f"{r['landing_error_m'] / 1e3:.2f}", _deg(r["landing_error_bearing_deg"]),
                       f"{r['burst_altitude_error_m']:+.0f}",
                       *("yes" if ins.get(k) else "no" for k in ("0.50", "0.90", "0.95")),
                       f"{r['rank']:.2f}", f"{r['energy_score_m'] / 1e3:.2f}", f"{r['crps_distance_m'] / 1e3:.2f}")
