@@ -159,16 +159,24 @@ def _chunk_member_winds(plan: Plan, winds: LoadedWinds, nominal: NominalRun, ids
     field_c = set_corridor(winds.field, plan, nominal.trajectories)
     if not hasattr(field_c, "member_sampler"):
         return draw_member_winds(dataclasses.replace(winds, field=field_c), n_total, seed, member_ids=ids)
+    return _NominalFirst(field_c, cached_member_sampler(field_c, n_total, base=winds.field).draw(ids, seed))
+
+
+def cached_member_sampler(field_c: Any, n_total: int, base: Any = None) -> Any:
+    """``field_c.member_sampler(n_total)``, built once per (base field, corridor, n_total) per process.
+
+    ``base`` is the object whose identity keys the cache (default ``field_c``): a forecast's scattered
+    field, or a window sweep's scattered corridor field (:mod:`balloonpath.windows`).
+    """
+    base = field_c if base is None else base
     corridor = getattr(field_c, "corridor", None)
-    for base, cor, n, cached in _SAMPLERS:
-        if base is winds.field and cor == corridor and n == n_total:
-            sampler = cached
-            break
-    else:
-        sampler = field_c.member_sampler(n_total)
-        _SAMPLERS.insert(0, (winds.field, corridor, n_total, sampler))
-        del _SAMPLERS[SAMPLER_CACHE_SIZE:]
-    return _NominalFirst(field_c, sampler.draw(ids, seed))
+    for key, cor, n, cached in _SAMPLERS:
+        if key is base and cor == corridor and n == n_total:
+            return cached
+    sampler = field_c.member_sampler(n_total)
+    _SAMPLERS.insert(0, (base, corridor, n_total, sampler))
+    del _SAMPLERS[SAMPLER_CACHE_SIZE:]
+    return sampler
 
 
 def fly_chunk(plan: Plan, winds: Any, nominal: NominalRun, members: np.ndarray, n_total: int,

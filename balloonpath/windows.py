@@ -43,7 +43,7 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from functools import lru_cache
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -67,11 +67,16 @@ from balloonpath.timeutil import iso_from_posix, parse_iso
 from balloonpath.winds.field import MeanMemberWinds, MemberWinds
 from balloonpath.zones import Zones, compute_zones
 
+if TYPE_CHECKING:
+    from balloonpath.scale import Engine
+
 __all__ = [
     "MAX_LAUNCH_TIMES",
     "SCORE_DEFAULTS",
     "SunAtLanding",
     "SweepTimings",
+    "WindowBlock",
+    "WindowChunk",
     "WindowRow",
     "WindowSweep",
     "launch_times",
@@ -80,7 +85,10 @@ __all__ = [
     "sun_at_landing",
     "sweep_windows",
     "time_zone_at",
+    "finish_window_block",
+    "fly_window_chunk",
     "window_score",
+    "window_units",
     "windows_csv_text",
     "windows_geojson",
     "write_windows_csv",
@@ -565,6 +573,216 @@ def _window_result(plan: Plan, winds: LoadedWinds, nominal: Trajectories, j: int
     )
 
 
+def _rows_of(plan: Plan, winds: LoadedWinds, nominal: Trajectories, times: np.ndarray,
+             member_rows: list[dict[str, np.ndarray] | None], mp: dict[str, np.ndarray], seed: int,
+             water: bool, base: tuple[float, float] | None, launch_tz: str,
+             constraints: dict[str, float]) -> tuple[list[WindowRow], list[Zones], list[float]]:
+    """Zones, sun, constraints and score of launch times ``times`` (row j of ``nominal`` is ``times[j]``).
+
+    The rows are not ranked yet (the rank needs every launch time). Used in this process and by
+    :func:`finish_window_block` on a worker, so both give the same rows.
+    """
+    rows: list[WindowRow] = []
+    zones_list: list[Zones] = []
+    zones_s: list[float] = []
+    for j in range(times.size):
+        t0 = time.perf_counter()
+        result = _window_result(plan, winds, nominal, j, member_rows[j], mp, seed, float(times[j]))
+        zones = compute_zones(result, avoid_path=plan.zones.avoid, water=water)
+        row = _row(plan, result, zones, base, launch_tz, float(times[j]))
+        reasons = check_constraints(row, constraints, base is not None)
+        row = dataclasses.replace(row, fit=not reasons, reasons=reasons, score=window_score(row, constraints))
+        rows.append(row)
+        zones_list.append(zones)
+        zones_s.append(time.perf_counter() - t0)
+    return rows, zones_list, zones_s
+
+
+# ------------------------------------------------------------------------------ work units
+_DRAWN: list[tuple[Any, int, int, bytes, MemberWinds]] = []  # (field, n_total, seed, ids, member winds)
+DRAWN_CACHE_SIZE = 2
+"""Member-chunk realisations kept per worker process (the units of one chunk share them)."""
+
+
+@dataclass(frozen=True)
+class WindowChunk:
+    """Members ``members`` of the launch times ``times`` (a work unit's output).
+
+    ``arrays`` maps burst_*, landing_*, max_alt_m to arrays of shape (len(times), len(members)).
+    ``steps``: integrator steps; ``elapsed_s``: busy time of the unit; ``worker``: host:pid.
+    """
+
+    times: np.ndarray
+    members: np.ndarray
+    arrays: dict[str, np.ndarray]
+    steps: int
+    elapsed_s: float
+    worker: str
+    warnings: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class WindowBlock:
+    """Unranked rows, zones and zone timings of a block of launch times (a work unit's output).
+
+    ``flight_warnings``: those of the block's member chunks; ``warnings``: those of the zones and rows.
+    """
+
+    times: np.ndarray
+    rows: tuple[WindowRow, ...]
+    zones: tuple[Zones, ...]
+    zones_s: tuple[float, ...]
+    flight_warnings: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+
+def _unit_member_winds(plan: Plan, winds: LoadedWinds, ids: np.ndarray, n_total: int, seed: int) -> MemberWinds:
+    """Realisations of members ``ids`` on the sweep corridor, as the whole-sweep draw gives them.
+
+    Fields with a member sampler build it once per worker (:func:`balloonpath.scale.cached_member_sampler`)
+    and the drawn chunk is kept for the next unit of the same members (another launch-time block).
+    """
+    if not plan.ensemble.wind_uncertainty:
+        return MeanMemberWinds(winds.field, n_total)
+    field_c = winds.field
+    key = ids.tobytes()
+    for f, n, sd, k, cached in _DRAWN:
+        if f is field_c and n == n_total and sd == seed and k == key:
+            return cached
+    if hasattr(field_c, "member_sampler"):
+        from balloonpath.forecast import _NominalFirst
+        from balloonpath.scale import cached_member_sampler
+
+        drawn: MemberWinds = _NominalFirst(field_c, cached_member_sampler(field_c, n_total).draw(ids, seed))
+    else:
+        drawn = draw_member_winds(winds, n_total, seed, member_ids=ids)
+    _DRAWN.insert(0, (field_c, n_total, seed, key, drawn))
+    del _DRAWN[DRAWN_CACHE_SIZE:]
+    return drawn
+
+
+def fly_window_chunk(plan: Plan, winds: LoadedWinds, times: np.ndarray, members: np.ndarray, n_total: int,
+                     seed: int) -> WindowChunk:
+    """Fly members ``members`` (all >= 1) of an ensemble of ``n_total`` at each launch time of ``times``.
+
+    A pure function of picklable inputs: ``winds`` carries the sweep's corridor field (scattered once
+    per worker), and each member's parameters, launch delay and wind realisation come from its own
+    random streams (``ensemble.member_generator(seed, i)``, ``gp_sample.member_wind_generator(seed, i)``),
+    so the arrays equal those of the in-process sweep bit for bit, whatever the blocks, chunks or worker.
+    """
+    import os
+
+    t_begin = time.perf_counter()
+    times = np.asarray(times, dtype=float)
+    ids = np.asarray(members, dtype=int)
+    if ids.size == 0 or ids.min() < 1 or ids.max() >= n_total:
+        raise ValueError(f"fly_window_chunk: members must lie in 1..{n_total - 1}")
+    ens = plan.ensemble
+    log = WarningLog()
+    with recording_warnings(log):
+        params = vertical_params_from_plan(plan, winds.atmosphere)
+        f = draw_member_factors(ids, seed, ens.ascent_sigma_fraction, ens.burst_sigma_fraction,
+                                ens.descent_sigma_fraction, ens.launch_delay_sigma_min * 60.0)
+        mparams = perturbed(params.repeat(ids.size), f.ascent, f.burst, f.descent, atmosphere=winds.atmosphere)
+        member_winds = _unit_member_winds(plan, winds, ids, n_total, seed)
+        col = np.tile(np.arange(ids.size), times.size)
+        start = np.repeat(times, ids.size) + f.launch_delay_s[col]
+        st = State.at_launch(plan.launch.latitude, plan.launch.longitude, plan.launch.elevation_m, start,
+                             col.size)
+        out = integrate(st, mparams.take(col), _RowWinds(member_winds, ids[col]), terrain_from_plan(plan),
+                        winds.atmosphere, dt_s=ens.time_step_s, record=np.arange(0))
+    arrays = {k: v.reshape(times.size, ids.size) for k, v in _slice_traj(out, slice(None)).items()}
+    return WindowChunk(times, ids, arrays, int(out.steps), time.perf_counter() - t_begin,
+                       f"{os.uname().nodename}:{os.getpid()}", tuple(log.messages))
+
+
+def _take_rows(tr: Trajectories, idx: np.ndarray) -> Trajectories:
+    """Rows ``idx`` of a Trajectories whose every row is recorded (the sweep's nominal flights)."""
+    names = ("burst_lat", "burst_lon", "burst_alt_m", "burst_time_s", "landing_lat", "landing_lon",
+             "landing_alt_m", "landing_time_s", "landing_speed_m_s", "max_alt_m")
+    return Trajectories(**{k: np.asarray(getattr(tr, k))[idx] for k in names},
+                        track_members=np.arange(idx.size), tracks={k: v[idx] for k, v in tr.tracks.items()},
+                        steps=tr.steps)
+
+
+def finish_window_block(plan: Plan, winds: LoadedWinds, nominal: Trajectories, times: np.ndarray,
+                        mp: dict[str, np.ndarray], seed: int, options: dict[str, Any],
+                        *chunks: WindowChunk) -> WindowBlock:
+    """Zones, sun, constraints and score of a block of launch times, from its member chunks (any order).
+
+    ``nominal`` holds the block's nominal flights (row j = ``times[j]``); ``mp`` the member parameters of
+    the whole ensemble; ``options`` the keywords ``water``, ``base``, ``launch_tz``, ``constraints``.
+    """
+    times = np.asarray(times, dtype=float)
+    parts = sorted(chunks, key=lambda c: int(c.members[0]))
+    member_rows: list[dict[str, np.ndarray] | None] = [None] * times.size
+    if parts:
+        for j in range(times.size):
+            member_rows[j] = {k: np.concatenate([c.arrays[k][j] for c in parts]) for k in parts[0].arrays}
+    log = WarningLog()
+    with recording_warnings(log):
+        rows, zones, zones_s = _rows_of(plan, winds, nominal, times, member_rows, mp, seed, **options)
+    flown = tuple(dict.fromkeys(m for c in parts for m in c.warnings))
+    return WindowBlock(times, tuple(rows), tuple(zones), tuple(zones_s), flown, tuple(log.messages))
+
+
+def window_units(n_times: int, n_total: int, workers: int,
+                 chunk_members: int | None = None) -> tuple[list[np.ndarray], list[np.ndarray]]:
+    """How a sweep is cut for an engine: blocks of launch-time indices and chunks of member numbers.
+
+    Member chunks follow :func:`balloonpath.scale.member_chunks` (aligned to the wind-draw batches;
+    default 128 members). The launch times are cut into about three blocks per worker, so that the
+    zones (one finishing unit per block) spread over the workers too, and into blocks small enough that
+    a unit integrates at most :data:`CHUNK_ROWS` rows.
+    """
+    from balloonpath.scale import DEFAULT_CHUNK_MEMBERS, member_chunks
+
+    chunks = member_chunks(n_total, chunk_members or DEFAULT_CHUNK_MEMBERS) if n_total > 1 else []
+    widest = max((c.size for c in chunks), default=1)
+    n_blocks = max(math.ceil(n_times / max(1, CHUNK_ROWS // widest)), min(n_times, 3 * max(int(workers), 1)))
+    return [b for b in np.array_split(np.arange(n_times), n_blocks) if b.size], chunks
+
+
+def _sweep_on_engine(engine: Engine, plan: Plan, winds_c: LoadedWinds, nominal: Trajectories,
+                     times: np.ndarray, n: int, seed: int, mp: dict[str, np.ndarray], options: dict[str, Any],
+                     progress: Callable[[int, int], None] | None) -> tuple[list[WindowBlock], list[str]]:
+    """Steps 3 and 4 of the sweep as work units: (block x chunk) flights, then one finishing unit per block.
+
+    Returns the blocks in launch-time order and the units' warnings (deduplicated: those of the flights,
+    then those of the zones, as in this process).
+    """
+    blocks, chunks = window_units(times.size, n, engine.n_workers, engine.chunk_members)
+    handle = engine.scatter(winds_c)
+    total = times.size * (n - 1) or 1
+    pending: dict[Any, int] = {}
+    finals: list[Any] = []
+    for b in blocks:
+        futs = [engine.submit(fly_window_chunk, plan, handle, times[b], ids, n, seed, name="window-chunk")
+                for ids in chunks]
+        for fut, ids in zip(futs, chunks, strict=True):
+            pending[fut] = b.size * ids.size
+        final = engine.submit(finish_window_block, plan, handle, _take_rows(nominal, b), times[b], mp, seed,
+                              options, *futs, name="window-block")
+        pending[final] = 0
+        finals.append(final)
+    done = 0
+    try:
+        for fut in engine.as_completed(list(pending)):
+            engine.result(fut)
+            count = pending.pop(fut)
+            if count:
+                done += count
+                if progress is not None:
+                    progress(done, total)
+    except BaseException:
+        if engine.client is not None:
+            engine.client.cancel([f for f in pending if hasattr(f, "cancel")])
+        raise
+    out = [engine.result(f) for f in finals]
+    messages = [m for b in out for m in b.flight_warnings] + [m for b in out for m in b.warnings]
+    return out, list(dict.fromkeys(messages))
+
+
 def sweep_windows(
     plan: Plan,
     start_s: float,
@@ -574,6 +792,7 @@ def sweep_windows(
     winds: LoadedWinds | None = None,
     progress: Callable[[int, int], None] | None = None,
     seed: int | None = None,
+    engine: Engine | None = None,
 ) -> WindowSweep:
     """Forecast every launch time from ``start_s`` to ``end_s`` (inclusive) every ``every_s``.
 
@@ -592,6 +811,11 @@ def sweep_windows(
         ``progress(n_landed, n_total)`` over all (launch time x member) rows, after each step.
     seed : int, optional
         Override ``[ensemble] seed``.
+    engine : balloonpath.scale.Engine, optional
+        An entered engine with workers (a local Dask cluster or a scheduler): the members fly in work
+        units of (launch-time block x member chunk) and the zones in one unit per block; the corridor
+        field is scattered once per worker. The rows are the same as in this process, bit for bit.
+        None, or an engine of one worker (``inline``): everything runs here, stacked (the default).
 
     Returns
     -------
@@ -663,18 +887,44 @@ def sweep_windows(
             np.concatenate([[1.0], f.descent]), atmosphere=winds.atmosphere,
         )
         delays = np.concatenate([[0.0], f.launch_delay_s])
+        distributed = engine is not None and not engine.inline
+        field_c = winds.field
+        member_winds: MemberWinds = MeanMemberWinds(winds.field, n)
         if n > 1 and ens.wind_uncertainty:
             field_c = _sweep_corridor(winds.field, plan, nominal)
-            member_winds = draw_member_winds(dataclasses.replace(winds, field=field_c), n, s)
-        else:
-            member_winds = MeanMemberWinds(winds.field, n)
+            if not distributed:  # on an engine each unit draws its own members' realisations
+                member_winds = draw_member_winds(dataclasses.replace(winds, field=field_c), n, s)
         draw_s, cpu["draw"] = time.perf_counter() - t0, time.process_time() - c0
+        mp = {
+            "ascent_rate_m_s": np.asarray(member_params.ascent_rate_m_s, float),
+            "burst_altitude_m": np.asarray(member_params.burst_altitude_m, float),
+            "descent_sea_level_m_s": np.asarray(member_params.descent_sea_level_m_s, float),
+            "launch_delay_s": np.asarray(delays, float),
+        }
+        water = bool(plan.zones.water or "max_water_probability" in constraints)
+        base = None
+        if plan.recovery.base_latitude is not None and plan.recovery.base_longitude is not None:
+            base = (float(plan.recovery.base_latitude), float(plan.recovery.base_longitude))
+        launch_tz = plan.launch.time_zone or time_zone_at(lat0, lon0)
+        options = {"water": water, "base": base, "launch_tz": launch_tz, "constraints": constraints}
 
         # 3. members 1..n-1 of all launch times, stacked (rows = launch time x member)
         t0, c0 = time.perf_counter(), time.process_time()
         per = n - 1
         member_rows: list[dict[str, np.ndarray] | None] = [None] * n_times
-        if per > 0:
+        if distributed:
+            # 3 + 4 as work units; the units' busy time goes to zones_s, the wall time to members_s
+            assert engine is not None
+            blocks, unit_warnings = _sweep_on_engine(
+                engine, plan, dataclasses.replace(winds, field=field_c), nominal, times, n, s, mp, options,
+                progress)
+            for m in unit_warnings:
+                if m not in log.messages:
+                    log.messages.append(m)
+            rows = [r for b in blocks for r in b.rows]
+            zones_list = [z for b in blocks for z in b.zones]
+            zones_s = [x for b in blocks for x in b.zones_s]
+        elif per > 0:
             per_chunk = max(1, CHUNK_ROWS // per)
             total_rows = n_times * per
             done = 0
@@ -698,30 +948,8 @@ def sweep_windows(
         c0 = time.process_time()
 
         # 4. zones, sun, constraints, score per launch time
-        mp = {
-            "ascent_rate_m_s": np.asarray(member_params.ascent_rate_m_s, float),
-            "burst_altitude_m": np.asarray(member_params.burst_altitude_m, float),
-            "descent_sea_level_m_s": np.asarray(member_params.descent_sea_level_m_s, float),
-            "launch_delay_s": np.asarray(delays, float),
-        }
-        water = bool(plan.zones.water or "max_water_probability" in constraints)
-        base = None
-        if plan.recovery.base_latitude is not None and plan.recovery.base_longitude is not None:
-            base = (float(plan.recovery.base_latitude), float(plan.recovery.base_longitude))
-        launch_tz = plan.launch.time_zone or time_zone_at(lat0, lon0)
-        rows: list[WindowRow] = []
-        zones_list: list[Zones] = []
-        zones_s: list[float] = []
-        for j in range(n_times):
-            t0 = time.perf_counter()
-            result = _window_result(plan, winds, nominal, j, member_rows[j], mp, s, float(times[j]))
-            zones = compute_zones(result, avoid_path=plan.zones.avoid, water=water)
-            row = _row(plan, result, zones, base, launch_tz, float(times[j]))
-            reasons = check_constraints(row, constraints, base is not None)
-            row = dataclasses.replace(row, fit=not reasons, reasons=reasons, score=window_score(row, constraints))
-            rows.append(row)
-            zones_list.append(zones)
-            zones_s.append(time.perf_counter() - t0)
+        if not distributed:
+            rows, zones_list, zones_s = _rows_of(plan, winds, nominal, times, member_rows, mp, s, **options)
         order = sorted((i for i, r in enumerate(rows) if r.fit), key=lambda i: (rows[i].score, i))
         for rank, i in enumerate(order, start=1):
             rows[i] = dataclasses.replace(rows[i], rank=rank)

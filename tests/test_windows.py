@@ -282,3 +282,72 @@ def test_cli_end_to_end_writes_ranked_outputs(write_plan, tmp_path: Path, capsys
            "--out", str(out)]
     assert main(bad) == 2
     assert "error: --end: 2027-05-14T05:00:00Z is before --start" in capsys.readouterr().err
+
+
+# ---------------------------------------------------------------------------------- engines
+# The reference of an engine run is the same sweep in this process: same plan, winds and seed, the same
+# bits (docs/scale.md: per-member random streams). Dask clusters listen on 127.0.0.1 only.
+def _same_sweep(a, b) -> None:  # noqa: ANN001
+    from balloonpath.windows import windows_csv_text
+
+    assert [r.rank for r in a.rows] == [r.rank for r in b.rows]
+    for ra, rb in zip(a.rows, b.rows, strict=True):
+        assert (ra.landing_lat, ra.landing_lon, ra.landing_time_s) == (rb.landing_lat, rb.landing_lon,
+                                                                       rb.landing_time_s)
+        assert (ra.zone_semi_major_km, ra.zone_semi_minor_km, ra.region_area_km2, ra.landing_time_p95_s,
+                ra.p_avoid, ra.score, ra.fit, ra.reasons) == (
+            rb.zone_semi_major_km, rb.zone_semi_minor_km, rb.region_area_km2, rb.landing_time_p95_s,
+            rb.p_avoid, rb.score, rb.fit, rb.reasons)
+    for za, zb in zip(a.zones, b.zones, strict=True):
+        np.testing.assert_array_equal(za.landing_x_m, zb.landing_x_m)
+        np.testing.assert_array_equal(za.landing_y_m, zb.landing_y_m)
+    assert windows_csv_text(a) == windows_csv_text(b)
+    assert sorted(a.warnings) == sorted(b.warnings)
+
+
+def test_sweep_on_a_dask_cluster_equals_the_sweep_in_this_process(write_plan, tmp_path: Path) -> None:
+    from distributed import LocalCluster
+
+    from balloonpath.scale import Engine
+    from balloonpath.winds.gp import BackgroundErrorField
+    from balloonpath.winds.synthetic import SyntheticAtmosphereField
+
+    (tmp_path / "avoid.geojson").write_text(json.dumps(AVOID))
+    extra = ("launch_delay_sigma_min = 5.0\n[zones]\navoid = \"avoid.geojson\"\n[windows]\nmax_distance_km = 60.0\n"
+             "latest_landing_before_sunset_min = 30\n[recovery]\nbase_latitude = 47.35\nbase_longitude = 8.9\n")
+    plan = _plan(write_plan, tmp_path, unc="true", extra=extra)
+    # invented time-varying truth (meander period 12 h) with a background-error model of 2 m/s
+    truth = SyntheticAtmosphereField(47.25, 8.5, T0, seed=4, meander_period_s=12 * 3600.0)
+    field = BackgroundErrorField(truth, 2.0, center=(47.25, 8.5, T0), alt_max_m=12_000.0,
+                                 time_min_s=T0 - 3600.0, time_max_s=T0 + 14 * 3600.0)
+    winds = _winds(field)
+    args = (plan, T0, T0 + 11 * 3600, 3600)
+    ref = sweep_windows(*args, members=40, winds=winds)
+    assert ref.time_varying and ref.n_fit >= 1
+    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                           dashboard_address=None, scheduler_kwargs={"dashboard": False})
+    try:
+        seen: list[tuple[int, int]] = []
+        # chunks of 32 members: members 1-31 and 32-39 in separate units, 6 launch-time blocks
+        with Engine(scheduler=cluster.scheduler_address, chunk_members=32) as engine:
+            remote = sweep_windows(*args, members=40, winds=winds, engine=engine,
+                                   progress=lambda done, total: seen.append((done, total)))
+    finally:
+        cluster.close()
+    _same_sweep(ref, remote)
+    assert len(seen) == 12 and seen[-1] == (12 * 39, 12 * 39)  # the bar follows the 12 flight units
+    with Engine(workers=1) as inline:  # one worker: the stacked sweep in this process
+        _same_sweep(ref, sweep_windows(*args, members=40, winds=winds, engine=inline))
+
+
+def test_cli_windows_on_two_local_workers_writes_the_same_table(write_plan, tmp_path: Path) -> None:
+    from balloonpath.cli import main
+    from balloonpath.windows import windows_csv_text
+
+    plan = _plan(write_plan, tmp_path, unc="true", sounding=True,
+                 extra="[windows]\nlatest_landing_before_sunset_min = 30\n")
+    ref = sweep_windows(plan, T0, T0 + 6 * 3600, 1800, members=24)
+    out = tmp_path / "two"
+    assert main(["windows", str(plan.path), "--start", "2027-05-14T06:00:00Z", "--end", "2027-05-14T12:00:00Z",
+                 "--every", "30m", "--members", "24", "--out", str(out), "--quiet", "--workers", "2"]) == 0
+    assert (out / "windows.csv").read_text() == windows_csv_text(ref)

@@ -98,6 +98,11 @@ def register(app: typer.Typer) -> None:
         seed: int | None = typer.Option(None, "--seed", min=0, help="Random seed (plan default)."),
         top: int = typer.Option(20, "--top", min=1, help="Rows shown in the table (files hold all)."),
         quiet: bool = typer.Option(False, "--quiet", help="No progress bar."),
+        workers: int | None = typer.Option(
+            None, "--workers", min=0,
+            help="Fly on N local worker processes (0: all cores; default: in this process)."),
+        scheduler: str | None = typer.Option(
+            None, "--scheduler", help="Fly on a running Dask scheduler (e.g. tcp://host:8786)."),
     ) -> None:
         """Forecast many launch times with one wind field; rank them by the limits of the plan's windows table."""
         from balloonpath.windows import (
@@ -116,8 +121,17 @@ def register(app: typer.Typer) -> None:
         with Progress(TextColumn("flying"), BarColumn(), TextColumn("{task.completed}/{task.total} landed"),
                       TimeElapsedColumn(), console=err, transient=True, disable=quiet) as bar:
             task = bar.add_task("fly", total=None)
-            sweep = sweep_windows(plan, start_s, end_s, every_s, members=members, seed=seed,
-                                  progress=lambda done, total: bar.update(task, completed=done, total=total))
+            update = lambda done, total: bar.update(task, completed=done, total=total)  # noqa: E731
+            if workers is None and scheduler is None:
+                sweep = sweep_windows(plan, start_s, end_s, every_s, members=members, seed=seed, progress=update)
+            else:
+                from balloonpath.scale import Engine
+
+                with Engine(workers=workers, scheduler=scheduler) as engine:
+                    if not quiet:
+                        err.print(f"engine: {engine.describe()}")
+                    sweep = sweep_windows(plan, start_s, end_s, every_s, members=members, seed=seed,
+                                          progress=update, engine=engine)
         for w in sweep.warnings:
             err.print(f"warning: {w}", style="yellow")
         files = write_windows_outputs(sweep, out)
@@ -130,7 +144,11 @@ def register(app: typer.Typer) -> None:
         for note in notes:
             console.print(f"[red]rejected[/red] {note}")
         tm = sweep.timings
-        if tm is not None:
+        if tm is not None and (workers is not None or scheduler is not None):
+            console.print(f"{n_times} launch times x {sweep.members} members on the engine: winds loaded once "
+                          f"in {tm.load_s:.1f} s; sweep {tm.total_s - tm.load_s:.1f} s wall (work units busy "
+                          f"{sum(tm.zones_s):.1f} s in zones)")
+        elif tm is not None:
             console.print(
                 f"{n_times} launch times x {sweep.members} members: winds loaded once in {tm.load_s:.1f} s; "
                 f"sweep {tm.total_s - tm.load_s:.1f} s = {tm.per_launch_time_s:.2f} s per launch time "

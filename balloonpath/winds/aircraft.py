@@ -33,6 +33,7 @@ import warnings
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import asdict, dataclass, field, fields
 from pathlib import Path
+from typing import IO
 
 import numpy as np
 
@@ -507,6 +508,7 @@ def _hat_basis(z: np.ndarray, knots: np.ndarray) -> np.ndarray:
 # Robust statistics over a stream of chunks (exact, bounded memory)
 # --------------------------------------------------------------------------------------------------------
 SELECT_CAP = 1 << 20  # values held at once by the streaming median (8 MB); above it, histogram selection
+SPILL_CHUNK_ROWS = 65_536  # rows held in memory / read back from a spill file per chunk
 
 
 def _order_statistics(values: Callable[[], Iterable[np.ndarray]], ranks: Sequence[int],
@@ -638,10 +640,52 @@ def _fit_profile(
 ) -> tuple[_Smooth | None, np.ndarray, np.ndarray, dict[int, tuple[float, float, int]]]:
     """Joint robust fit of the smooth reference and per-aircraft heading biases (see fit_reference).
 
-    ``rows()`` yields the rows in chunks and may be called many times (once per pass); memory is one chunk
-    plus O(p^2 + aircraft). Returns the design, the coefficients per component and
+    ``rows()`` yields the rows in chunks; it is read once. Up to ``SPILL_CHUNK_ROWS`` rows are kept in memory,
+    more go to a temporary file in a compact form (69 bytes a row) read back once per pass, so memory is one
+    chunk plus O(p^2 + aircraft). Returns the design, the coefficients per component and
     ``{aircraft index: (bias_deg, standard_error_deg, n_derived_rows)}``.
     """
+    kept: list[_FitRows] = []
+    n_kept = 0
+    with tempfile.TemporaryFile(prefix="balloonpath-fit-") as spill:
+        spilled = False
+        for c in rows():
+            if not spilled and n_kept + c.z.size <= SPILL_CHUNK_ROWS:
+                kept.append(c)
+                n_kept += c.z.size
+                continue
+            for part in ([*kept, c] if not spilled else [c]):
+                record = np.empty(part.z.size, dtype=_FIT_DTYPE)
+                for name in _FIT_DTYPE.names:
+                    record[name] = getattr(part, name)
+                spill.write(record.tobytes())
+            kept, spilled = [], True
+
+        def cached() -> Iterable[_FitRows]:
+            if not spilled:
+                return kept
+            return _read_fit_rows(spill)
+
+        return _fit_profile_rows(cached, n_aircraft, knot_m, with_bias, bias_prior_deg, iterations)
+
+
+_FIT_DTYPE = np.dtype([(name, "<f8") for name in ("lat", "lon", "z", "t", "du", "dv", "eu", "ev")]
+                      + [("ac", "<i4"), ("derived", "?")])
+
+
+def _read_fit_rows(spill: IO[bytes]) -> Iterator[_FitRows]:
+    spill.seek(0)
+    while data := spill.read(SPILL_CHUNK_ROWS * _FIT_DTYPE.itemsize):
+        rec = np.frombuffer(data, dtype=_FIT_DTYPE)
+        yield _FitRows(*(rec[name] for name in _FIT_DTYPE.names[:8]), rec["ac"].astype(np.intp),
+                       rec["derived"])
+
+
+def _fit_profile_rows(
+    rows: Callable[[], Iterable[_FitRows]], n_aircraft: int, knot_m: float, with_bias: bool,
+    bias_prior_deg: float, iterations: int,
+) -> tuple[_Smooth | None, np.ndarray, np.ndarray, dict[int, tuple[float, float, int]]]:
+    """The solver of :func:`_fit_profile` over re-readable chunks (``rows()`` is read once per pass)."""
     n, zmin, zmax, slat, slon, st = 0, math.inf, -math.inf, 0.0, 0.0, 0.0
     for c in rows():
         if c.z.size:
@@ -1012,7 +1056,6 @@ def superobservations(states: AircraftStates, config: QCConfig | None = None) ->
 # --------------------------------------------------------------------------------------------------------
 # Streaming: time windows for the row-local rules, a disk spill for the file-wide fit
 # --------------------------------------------------------------------------------------------------------
-SPILL_CHUNK_ROWS = 65_536  # rows read back from the spill per chunk (about 8 MB)
 RAW_CHUNK_ROWS = 4096  # decoded rows handed from the raw-message reader at a time
 _SPILL_FLOATS = ("time_s", "lat", "lon", "alt_m", "ground_speed_m_s", "track_deg", "true_airspeed_m_s",
                  "heading_true_deg", "roll_deg", "track_rate_deg_s", "pair_age_s", "wind_u", "wind_v")
@@ -1062,16 +1105,15 @@ class _WindowScreen:
         rows, seq = self._join(self.pending)
         take = rows.time_s < limit
         near = ~take & (rows.time_s < limit + TRACK_RATE_GAP_S)
-        parts = ([self.context] if self.context is not None else []) + [(rows.select(take), seq[take]),
-                                                                          (rows.select(near), seq[near])]
-        hood, hood_seq = self._join(parts)
+        done_parts = ([self.context] if self.context is not None else []) + [(rows.select(take), seq[take])]
+        hood, hood_seq = self._join([*done_parts, (rows.select(near), seq[near])])
         order = np.argsort(hood_seq, kind="stable")
         rate = np.empty(len(hood))
         rate[order] = track_rate_from_sequence(hood.select(order), TRACK_RATE_GAP_S)
         n_ctx = len(self.context[0]) if self.context is not None else 0
         screened = rows.select(take)
         self.sink(screened, screen_states(screened, self.cfg, rate[n_ctx:n_ctx + len(screened)]))
-        done, done_seq = self._join(parts[:2])
+        done, done_seq = self._join(done_parts)
         keep = done.time_s >= limit - TRACK_RATE_GAP_S
         self.context = (done.select(keep), done_seq[keep])
         self.pending = [(rows.select(~take), seq[~take])] if np.any(~take) else []
@@ -1099,7 +1141,7 @@ def derive_observations(
     config: QCConfig | None = None,
     pair_window_s: float | None = None,
     reference: tuple[float, float] | None = None,
-    window_s: float = 1800.0,
+    window_s: float = 900.0,
 ) -> tuple[WindObservations, QCReport]:
     """Wind observations from report tables and/or raw Mode-S message files, in bounded memory.
 
