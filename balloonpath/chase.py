@@ -46,6 +46,7 @@ from balloonpath.ensemble import State, Trajectories, draw_member_factors, integ
 from balloonpath.errors import PhysicsWarning, WarningLog, input_error, recording_warnings
 from balloonpath.flight.phases import ASCENT, DESCENT, FLOAT, LANDED, PHASE_NAMES
 from balloonpath.flight.vertical import VerticalParams, perturbed, vertical_params_from_plan
+from balloonpath.forecast import NominalFirst
 from balloonpath.geodesy import inverse, normalize_longitude, radii_of_curvature
 from balloonpath.plan import Plan
 from balloonpath.result import ForecastResult, Points, Track
@@ -584,25 +585,6 @@ def condition_field(field: Any, preflight: WindObservations, telemetry: WindObse
 
 
 # ---------------------------------------------------------------------------------------- re-prediction
-class _NominalFirst:
-    """Member 0 flies the mean wind; the others their own realisation."""
-
-    def __init__(self, mean: Any, sampled: MemberWinds) -> None:
-        self.mean = mean
-        self.sampled = sampled
-        self.n_members = sampled.n_members
-
-    def wind(self, members: np.ndarray, lat: np.ndarray, lon: np.ndarray, alt_m: np.ndarray,
-             time_s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        u, v = self.sampled.wind(members, lat, lon, alt_m, time_s)
-        nominal = members == 0
-        if np.any(nominal):
-            u, v = np.array(u, dtype=float), np.array(v, dtype=float)
-            um, vm = self.mean.wind(lat[nominal], lon[nominal], alt_m[nominal], time_s[nominal])
-            u[nominal], v[nominal] = um, vm
-        return u, v
-
-
 def _truncated_factor(z: np.ndarray, mean: float, sd: float, lower: float) -> np.ndarray:
     """mean + sd * z' with z' the standard normal z mapped onto the part above ``lower`` (inverse CDF)."""
     if sd <= 0.0:
@@ -720,7 +702,7 @@ def repredict(
         cfield = _corridor(field, est, nominal)
         if hasattr(cfield, "sample") and plan.ensemble.wind_uncertainty:
             rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(2**32 - 1,)))
-            mw: MemberWinds = _NominalFirst(cfield, cfield.sample(n, rng))
+            mw: MemberWinds = NominalFirst(cfield, cfield.sample(n, rng))
         else:
             mw = MeanMemberWinds(field, n)
         rest = np.arange(1, n)

@@ -431,21 +431,9 @@ def _lift(plan: Plan) -> dict[str, Any]:
         return out
     b, p = plan.balloon, plan.payload
     try:
-        from balloonpath.flight.lift import plan_lift
+        from balloonpath.flight.vertical import lift_plan_of
 
-        lp = plan_lift(
-            b.envelope_mass_kg,
-            p.mass_kg,
-            b.burst_diameter_m,
-            neck_lift_kg=b.neck_lift_kg,
-            target_ascent_m_s=b.target_ascent_m_s,
-            gas=b.gas,
-            purity=b.gas_purity,
-            drag_coefficient=b.drag_coefficient,
-            launch_altitude_m=plan.launch.elevation_m,
-            warn=False,
-            source=plan.path,
-        )
+        lp = lift_plan_of(plan, warn=False)
         out.update(
             neck_lift_kg=lp.neck_lift_kg,
             free_lift_kg=lp.free_lift_kg,

@@ -138,7 +138,7 @@ def _background_of(plan: Plan, info: dict[str, Any], atmosphere_holder: list) ->
     return SoundingField(soundings, outside=w.outside), None
 
 
-class _NominalFirst:
+class NominalFirst:
     """Member 0 flies the mean wind; the others fly their own realisation."""
 
     def __init__(self, mean: WindField, sampled: MemberWinds) -> None:
@@ -208,9 +208,9 @@ def draw_member_winds(winds: LoadedWinds, n_members: int, seed: int,
     field = winds.field
     if hasattr(field, "sample_members"):
         ids = np.arange(n_members) if member_ids is None else np.asarray(member_ids, dtype=int)
-        return _NominalFirst(field, field.sample_members(ids, seed, n_total=n_members))
+        return NominalFirst(field, field.sample_members(ids, seed, n_total=n_members))
     rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(2**32 - 1,)))
-    return _NominalFirst(field, field.sample(n_members, rng))
+    return NominalFirst(field, field.sample(n_members, rng))
 
 
 def run_forecast(

@@ -39,8 +39,8 @@ from balloonpath.flight.vertical import VerticalParams, perturbed
 from balloonpath.forecast import (
     TRACKS_FOR_PLOTS,
     LoadedWinds,
+    NominalFirst,
     _assemble,
-    _NominalFirst,
     draw_member_winds,
     fly_nominal,
     load_winds,
@@ -159,7 +159,7 @@ def _chunk_member_winds(plan: Plan, winds: LoadedWinds, nominal: NominalRun, ids
     field_c = set_corridor(winds.field, plan, nominal.trajectories)
     if not hasattr(field_c, "member_sampler"):
         return draw_member_winds(dataclasses.replace(winds, field=field_c), n_total, seed, member_ids=ids)
-    return _NominalFirst(field_c, cached_member_sampler(field_c, n_total, base=winds.field).draw(ids, seed))
+    return NominalFirst(field_c, cached_member_sampler(field_c, n_total, base=winds.field).draw(ids, seed))
 
 
 def cached_member_sampler(field_c: Any, n_total: int, base: Any = None) -> Any:

@@ -650,10 +650,10 @@ def _unit_member_winds(plan: Plan, winds: LoadedWinds, ids: np.ndarray, n_total:
         if f is field_c and n == n_total and sd == seed and k == key:
             return cached
     if hasattr(field_c, "member_sampler"):
-        from balloonpath.forecast import _NominalFirst
+        from balloonpath.forecast import NominalFirst
         from balloonpath.scale import cached_member_sampler
 
-        drawn: MemberWinds = _NominalFirst(field_c, cached_member_sampler(field_c, n_total).draw(ids, seed))
+        drawn: MemberWinds = NominalFirst(field_c, cached_member_sampler(field_c, n_total).draw(ids, seed))
     else:
         drawn = draw_member_winds(winds, n_total, seed, member_ids=ids)
     _DRAWN.insert(0, (field_c, n_total, seed, key, drawn))

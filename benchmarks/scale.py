@@ -1,6 +1,7 @@
 """Scale-out benchmark: a 48-launch-time sweep on 1 and 2 local workers, the cost model, the tiled GP.
 
-Run:  .venv/bin/python benchmarks/scale.py [members_per_forecast] [launch_times]
+Run:  .venv/bin/python benchmarks/scale.py [members_per_forecast] [launch_times] [windows]
+      (``windows`` as third argument: only the launch-window sweep figures)
 
 Prints
 - wall time of the sweep (invented scenario "Gannet Bay", scenarios/coastal) in this process (1 worker)
@@ -8,7 +9,9 @@ Prints
   member-steps per second per core (a member-step is one member advanced by one 10 s time step);
 - the cost model: busy time per member-step inside the work units, peak memory per worker, wind-draw cost
   per member of a GP field with observations;
-- the tiled GP fit against the exact GP on a subset (speed and accuracy loss).
+- the tiled GP fit against the exact GP on a subset (speed and accuracy loss);
+- ``balloonpath.windows.sweep_windows`` over the same launch times (one stacked sweep, common random
+  numbers) in this process and on 2 local workers, the speed-up, and a check that the rows are identical.
 The figures depend on the machine and its load; docs/scale.md records one run.
 """
 
@@ -54,6 +57,45 @@ def sweep(engine_workers: int, members: int, n_times: int) -> dict[str, float]:
     steps = sum(r["member_steps"] for r in rows)
     busy = sum(r["busy_s"] for r in rows)
     return {"wall_s": wall, "member_steps": steps, "busy_s": busy, "rss_mib": rss}
+
+
+def window_sweep(engine_workers: int, members: int, n_times: int) -> tuple[dict[str, float], object]:
+    """``sweep_windows`` of the coastal scenario on ``engine_workers`` (1: in this process, no engine)."""
+    from balloonpath.forecast import load_winds
+    from balloonpath.plan import load_plan
+    from balloonpath.scale import Engine
+    from balloonpath.windows import sweep_windows
+
+    plan = load_plan(ROOT / "scenarios" / "coastal" / "plan.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        winds = load_winds(plan)
+    args = (plan, plan.launch_time_s, plan.launch_time_s + 1800.0 * (n_times - 1), 1800.0)
+    t0 = time.perf_counter()
+    if engine_workers == 1:
+        sweep = sweep_windows(*args, members=members, winds=winds, seed=7)
+        start = 0.0
+    else:
+        with Engine(workers=engine_workers) as engine:
+            start = time.perf_counter() - t0
+            sweep = sweep_windows(*args, members=members, winds=winds, seed=7, engine=engine)
+    wall = time.perf_counter() - t0
+    return {"wall_s": wall, "engine_start_s": start, "zones_busy_s": sum(sweep.timings.zones_s)}, sweep
+
+
+def windows_figures(members: int, n_times: int) -> None:
+    from balloonpath.windows import windows_csv_text
+
+    one, s1 = window_sweep(1, members, n_times)
+    two, s2 = window_sweep(2, members, n_times)
+    same = windows_csv_text(s1) == windows_csv_text(s2)
+    print(f"windows sweep: {n_times} launch times x {members} members, scenario coastal (invented)")
+    print(f"  in this process          wall {one['wall_s']:6.1f} s  (zones {one['zones_busy_s']:.1f} s)")
+    print(f"  2 workers (local dask)   wall {two['wall_s']:6.1f} s  (of which cluster start "
+          f"{two['engine_start_s']:.1f} s; zones busy {two['zones_busy_s']:.1f} s on the workers)")
+    print(f"  speed-up 2 vs 1: {one['wall_s'] / two['wall_s']:.2f} "
+          f"(without the cluster start {one['wall_s'] / (two['wall_s'] - two['engine_start_s']):.2f}); "
+          f"windows.csv identical: {same}")
 
 
 def wind_draw_cost() -> dict[str, float]:
@@ -114,6 +156,9 @@ def tiled_gp(n: int = 6000) -> dict[str, float]:
 def main() -> None:
     members = int(sys.argv[1]) if len(sys.argv) > 1 else 33
     n_times = int(sys.argv[2]) if len(sys.argv) > 2 else 48
+    if len(sys.argv) > 3 and sys.argv[3] == "windows":
+        windows_figures(members, n_times)
+        return
     print(f"sweep: {n_times} launch times x {members} members, scenario coastal (invented), cores {os.cpu_count()}")
     one = sweep(1, members, n_times)
     two = sweep(2, members, n_times)
@@ -127,6 +172,7 @@ def main() -> None:
           f"{w['per_member_s'] * 1e3:.1f} ms and {w['bytes_per_member'] / 2**20:.2f} MiB per member")
     t = tiled_gp()
     print("tiled GP: " + ", ".join(f"{k} {v:.4g}" for k, v in t.items()))
+    windows_figures(members, n_times)
 
 
 if __name__ == "__main__":

@@ -30,7 +30,7 @@ from balloonpath.atmosphere import SEA_LEVEL_DENSITY, Atmosphere
 from balloonpath.errors import PhysicsWarning, PlanError, input_error
 from balloonpath.flight.descent import parachute_descent_rate
 from balloonpath.flight.gas import gas_volume_m3
-from balloonpath.flight.lift import plan_lift, sphere_diameter_m, steady_ascent_rate
+from balloonpath.flight.lift import LiftPlan, plan_lift, sphere_diameter_m, steady_ascent_rate
 from balloonpath.flight.phases import ASCENT, DESCENT, FLOAT, LANDED  # noqa: F401  (re-exported codes)
 from balloonpath.plan import Plan
 
@@ -124,6 +124,26 @@ class VerticalParams:
         return self._map(lambda a: np.repeat(a, int(n)))
 
 
+def lift_plan_of(plan: Plan, atmosphere: Atmosphere | None = None, warn: bool = True) -> LiftPlan:
+    """The lift plan (:func:`balloonpath.flight.lift.plan_lift`) of a physics-mode plan.
+
+    Raises
+    ------
+    PlanError
+        When the plan has no ``[balloon]`` and ``[payload]`` tables (rates mode).
+    """
+    b, p = plan.balloon, plan.payload
+    if b is None or p is None:
+        raise input_error(plan.path, "[balloon]", "is missing: the plan is in rates mode",
+                          "give [balloon] and [payload] for lift planning", cls=PlanError)
+    return plan_lift(
+        b.envelope_mass_kg, p.mass_kg, b.burst_diameter_m, neck_lift_kg=b.neck_lift_kg,
+        target_ascent_m_s=b.target_ascent_m_s, gas=b.gas, purity=b.gas_purity,
+        drag_coefficient=b.drag_coefficient, launch_altitude_m=plan.launch.elevation_m,
+        atmosphere=atmosphere, warn=warn, source=plan.path,
+    )
+
+
 def vertical_params_from_plan(plan: Plan, atmosphere: Atmosphere | None = None) -> VerticalParams:
     """Nominal (N = 1) vertical parameters from a flight plan.
 
@@ -168,19 +188,7 @@ def vertical_params_from_plan(plan: Plan, atmosphere: Atmosphere | None = None) 
         assert (
             b is not None and p is not None and chute is not None
         )  # guaranteed by plan validation
-        lp = plan_lift(
-            b.envelope_mass_kg,
-            p.mass_kg,
-            b.burst_diameter_m,
-            neck_lift_kg=b.neck_lift_kg,
-            target_ascent_m_s=b.target_ascent_m_s,
-            gas=b.gas,
-            purity=b.gas_purity,
-            drag_coefficient=b.drag_coefficient,
-            launch_altitude_m=plan.launch.elevation_m,
-            atmosphere=atmosphere,
-            source=plan.path,
-        )
+        lp = lift_plan_of(plan, atmosphere)
         v0 = float(parachute_descent_rate(p.mass_kg, chute.diameter_m, chute.drag_coefficient))
         values = dict(
             ascent_rate_m_s=[lp.launch_ascent_rate_m_s],
