@@ -708,17 +708,20 @@ def _take_rows(tr: Trajectories, idx: np.ndarray) -> Trajectories:
 def finish_window_block(plan: Plan, winds: LoadedWinds, nominal: Trajectories, times: np.ndarray,
                         mp: dict[str, np.ndarray], seed: int, options: dict[str, Any],
                         *chunks: WindowChunk) -> WindowBlock:
-    """Zones, sun, constraints and score of a block of launch times, from its member chunks (any order).
+    """Zones, sun, constraints and score of a block of launch times, from the member chunks that flew them.
 
     ``nominal`` holds the block's nominal flights (row j = ``times[j]``); ``mp`` the member parameters of
     the whole ensemble; ``options`` the keywords ``water``, ``base``, ``launch_tz``, ``constraints``.
+    ``chunks`` (any order) must hold every member 1..N-1 of each of ``times``; they may cover other launch
+    times too (their rows are picked by launch time).
     """
     times = np.asarray(times, dtype=float)
-    parts = sorted(chunks, key=lambda c: int(c.members[0]))
+    parts = sorted(chunks, key=lambda c: (int(c.members[0]), float(c.times[0])))
     member_rows: list[dict[str, np.ndarray] | None] = [None] * times.size
     if parts:
-        for j in range(times.size):
-            member_rows[j] = {k: np.concatenate([c.arrays[k][j] for c in parts]) for k in parts[0].arrays}
+        for j, t in enumerate(times):
+            have = [(c, int(np.flatnonzero(c.times == t)[0])) for c in parts if np.any(c.times == t)]
+            member_rows[j] = {k: np.concatenate([c.arrays[k][i] for c, i in have]) for k in parts[0].arrays}
     log = WarningLog()
     with recording_warnings(log):
         rows, zones, zones_s = _rows_of(plan, winds, nominal, times, member_rows, mp, seed, **options)
@@ -726,45 +729,60 @@ def finish_window_block(plan: Plan, winds: LoadedWinds, nominal: Trajectories, t
     return WindowBlock(times, tuple(rows), tuple(zones), tuple(zones_s), flown, tuple(log.messages))
 
 
-def window_units(n_times: int, n_total: int, workers: int,
-                 chunk_members: int | None = None) -> tuple[list[np.ndarray], list[np.ndarray]]:
-    """How a sweep is cut for an engine: blocks of launch-time indices and chunks of member numbers.
+def window_units(n_times: int, n_total: int, workers: int, chunk_members: int | None = None
+                 ) -> tuple[list[np.ndarray], list[np.ndarray], list[np.ndarray]]:
+    """How a sweep is cut for an engine: flight blocks, member chunks and zone blocks.
 
-    Member chunks follow :func:`balloonpath.scale.member_chunks` (aligned to the wind-draw batches;
-    default 128 members). The launch times are cut into about three blocks per worker, so that the
-    zones (one finishing unit per block) spread over the workers too, and into blocks small enough that
-    a unit integrates at most :data:`CHUNK_ROWS` rows.
+    Returns ``(flight_blocks, chunks, zone_blocks)``: blocks are arrays of launch-time indices, chunks
+    arrays of member numbers. A flight unit flies one chunk at every launch time of one flight block; a
+    zone unit computes the rows of one zone block.
+
+    - Member chunks follow :func:`balloonpath.scale.member_chunks` (aligned to the wind-draw batches;
+      default 128 members).
+    - The launch times are split into flight blocks only as far as needed: to keep a unit at most
+      :data:`CHUNK_ROWS` rows, and to give every worker a unit when there are fewer chunks than
+      workers. Each extra block draws its chunk's realisations again (once per worker, cached).
+    - Zone blocks: two per worker (the zones and the land mask cost as much as the flights in a small
+      sweep), each an independent unit.
     """
     from balloonpath.scale import DEFAULT_CHUNK_MEMBERS, member_chunks
 
+    w = max(int(workers), 1)
     chunks = member_chunks(n_total, chunk_members or DEFAULT_CHUNK_MEMBERS) if n_total > 1 else []
     widest = max((c.size for c in chunks), default=1)
-    n_blocks = max(math.ceil(n_times / max(1, CHUNK_ROWS // widest)), min(n_times, 3 * max(int(workers), 1)))
-    return [b for b in np.array_split(np.arange(n_times), n_blocks) if b.size], chunks
+    n_flight = max(math.ceil(n_times / max(1, CHUNK_ROWS // widest)), math.ceil(w / max(len(chunks), 1)))
+    flight = [b for b in np.array_split(np.arange(n_times), min(n_flight, n_times)) if b.size]
+    zone = [b for b in np.array_split(np.arange(n_times), min(2 * w, n_times)) if b.size]
+    return (flight if chunks else []), chunks, zone
 
 
 def _sweep_on_engine(engine: Engine, plan: Plan, winds_c: LoadedWinds, nominal: Trajectories,
                      times: np.ndarray, n: int, seed: int, mp: dict[str, np.ndarray], options: dict[str, Any],
                      progress: Callable[[int, int], None] | None) -> tuple[list[WindowBlock], list[str]]:
-    """Steps 3 and 4 of the sweep as work units: (block x chunk) flights, then one finishing unit per block.
+    """Steps 3 and 4 of the sweep as work units: (flight block x chunk) flights, then zones per zone block.
 
-    Returns the blocks in launch-time order and the units' warnings (deduplicated: those of the flights,
-    then those of the zones, as in this process).
+    Returns the zone blocks in launch-time order and the units' warnings (deduplicated: those of the
+    flights, then those of the zones, as in this process).
     """
-    blocks, chunks = window_units(times.size, n, engine.n_workers, engine.chunk_members)
+    flight_blocks, chunks, zone_blocks = window_units(times.size, n, engine.n_workers, engine.chunk_members)
     handle = engine.scatter(winds_c)
     total = times.size * (n - 1) or 1
     pending: dict[Any, int] = {}
-    finals: list[Any] = []
-    for b in blocks:
-        futs = [engine.submit(fly_window_chunk, plan, handle, times[b], ids, n, seed, name="window-chunk")
-                for ids in chunks]
-        for fut, ids in zip(futs, chunks, strict=True):
+    flights: list[tuple[np.ndarray, Any]] = []
+    for b in flight_blocks:
+        for ids in chunks:
+            fut = engine.submit(fly_window_chunk, plan, handle, times[b], ids, n, seed, name="window-chunk")
             pending[fut] = b.size * ids.size
-        final = engine.submit(finish_window_block, plan, handle, _take_rows(nominal, b), times[b], mp, seed,
-                              options, *futs, name="window-block")
+            flights.append((b, fut))
+    finals: list[Any] = []
+    for z in zone_blocks:
+        lo, hi = int(z[0]), int(z[-1])
+        needs = [f for b, f in flights if int(b[0]) <= hi and int(b[-1]) >= lo]
+        final = engine.submit(finish_window_block, plan, handle, _take_rows(nominal, z), times[z], mp, seed,
+                              options, *needs, name="window-zones")
         pending[final] = 0
         finals.append(final)
+    del flights
     done = 0
     try:
         for fut in engine.as_completed(list(pending)):

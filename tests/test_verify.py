@@ -49,7 +49,7 @@ from balloonpath.zones import chi2_scale, ellipse_from_points
 
 pytestmark = pytest.mark.filterwarnings("ignore:wind GP. no usable observations")
 
-T0 = 1_810_000_000.0  # 2027-05-10T...Z, invented flight day
+T0 = 1_810_000_000.0  # 2027-05-11T01:46:40Z, an invented flight
 LAT0, LON0, ELEV = 51.20, -1.75, 150.0
 
 RATES = """\
