@@ -357,11 +357,16 @@ class Engine:
             if self.scheduler is not None:
                 self.client = Client(self.scheduler, timeout=f"{self.connect_timeout_s}s")
             else:
+                import dask
                 from distributed import LocalCluster
 
-                self.cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
-                                            host="127.0.0.1", dashboard_address=None,
-                                            scheduler_kwargs={"dashboard": False})
+                # Dask's default MALLOC_TRIM_THRESHOLD_=65536 turns every large numpy temporary of the
+                # integrator into an mmap/munmap pair: units of thousands of rows ran 1.7x slower
+                # (benchmarks/scale.py). The workers keep glibc's default here.
+                with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}):
+                    self.cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
+                                                host="127.0.0.1", dashboard_address=None,
+                                                scheduler_kwargs={"dashboard": False})
                 self.client = Client(self.cluster)
         except (OSError, TimeoutError) as exc:
             self.close()

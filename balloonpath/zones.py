@@ -541,7 +541,7 @@ def _mask_file() -> Path:
             None,
             "[zones] water",
             "needs the land mask of the global-land-mask package, which is not installed",
-            "pip install 'balloonpath[water]', or set water = false",
+            "pip install global-land-mask (a balloonpath dependency), or set water = false",
         )
     path = Path(spec.origin).parent / "globe_combined_mask_compressed.npz"
     if not path.exists():
