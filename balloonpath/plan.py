@@ -75,7 +75,14 @@ class BalloonSpec:
         None, low=0.0, high=30.0, low_open=True, doc="wanted launch ascent rate; the neck lift is solved for"
     )
     drag_coefficient: float = key(
-        0.30, low=0.05, high=2.0, doc="ascent drag coefficient of the envelope (see docs/physics.md)"
+        0.30, low=0.05, high=2.0,
+        doc="ascent drag coefficient of the envelope; with drag_model reynolds: its value at launch "
+        "(see docs/physics.md)",
+    )
+    drag_model: str = key(
+        "reynolds", choices=("constant", "reynolds"),
+        doc="ascent drag law: constant Cd, or Cd following the Reynolds number through the drag crisis "
+        "(default; fits a real radiosonde ascent better, docs/physics.md)",
     )
 
 

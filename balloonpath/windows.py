@@ -22,6 +22,11 @@ How it runs (see docs/windows.md)
 5. Zones and probabilities per launch time (:func:`balloonpath.zones.compute_zones`), the sun at each
    landing point, constraints, score and rank.
 
+On a Dask engine (``sweep_windows(..., engine=...)``) steps 4 and 5 run as work units
+(:func:`fly_window_chunk` per flight block x member chunk, :func:`finish_window_block` per zone block;
+:func:`window_units`), with the corridor field scattered once per worker and per-member random streams,
+so the rows are the same bits as in this process.
+
 References
 ----------
 [NOAA-SUN] NOAA ESRL/SRRB "Solar Calculation Details" (Meeus algorithms; 0.833 deg of refraction and

@@ -24,7 +24,12 @@ from balloonpath.winds.gp import (
     fit_wind_field,
     load_wind_field,
 )
-from balloonpath.winds.gp_kernels import GPHyperparameters, log_marginal_likelihood, se_kernel
+from balloonpath.winds.gp_kernels import (
+    GPHyperparameters,
+    altitude_profile,
+    log_marginal_likelihood,
+    se_kernel,
+)
 from balloonpath.winds.gp_sample import FastProjection
 from balloonpath.winds.observations import WindObservations
 
@@ -44,21 +49,27 @@ def _obs(rng, n, *, alt=(8000.0, 12000.0), u=None, v=None, sigma=1.0):
 
 def test_rw2006_worked_example():
     # REFERENCES.md §11 ([RW2006] Alg. 2.1, computed): X = 0..4, y = sin X, SE l = 1, sf^2 = 1, sn^2 = 0.01.
+    # Stationary kernel (profile "uniform": g = 1), as in the reference.
     x = np.zeros((5, 4))
     x[:, 0] = np.arange(5.0)
     y = np.sin(x[:, :1])
-    hp = GPHyperparameters(1.0, 1.0, 1.0, 1.0)
+    hp = GPHyperparameters(1.0, 1.0, 1.0, 1.0, "uniform")
     post = Posterior(x, y, np.full(5, 0.01), hp)
     mean, var = post.mean_var(np.array([[2.5, 0, 0, 0]]))
     assert mean[0, 0] == pytest.approx(0.6012109633, rel=1e-8)
     assert var[0] == pytest.approx(0.0160467489, rel=1e-7)
-    lml, _ = log_marginal_likelihood(hp.to_log(), x, y, np.full(5, 0.01))
+    lml, _ = log_marginal_likelihood(hp.to_log(), x, y, np.full(5, 0.01), profile="uniform")
     assert lml == pytest.approx(-4.4691886467, rel=1e-9)
 
 
-def test_matches_scikit_learn():
+@pytest.mark.parametrize("profile", ["uniform", "nwp"])
+def test_matches_scikit_learn(profile):
     # Reference: scikit-learn GaussianProcessRegressor with ConstantKernel * RBF(anisotropic), per-point
     # alpha = noise variance, optimizer=None: same posterior mean, latent sd and log marginal likelihood.
+    # With the altitude profile, k = s^2 g(z) g(z') k0 is the covariance of g(z) f0(x), f0 ~ GP(0, s^2 k0),
+    # so the data y_i / g_i with noise variance noise_i / g_i^2 are a stationary GP problem (sklearn):
+    # mean = g(z*) mean0, sd = g(z*) sd0, log p(y) = log p0(y / g) - k_out sum_i log g_i (change of
+    # variables; the Jacobian of y -> y / g per output).
     from sklearn.gaussian_process import GaussianProcessRegressor
     from sklearn.gaussian_process.kernels import RBF, ConstantKernel
 
@@ -67,17 +78,37 @@ def test_matches_scikit_learn():
     x = np.column_stack([rng.uniform(-200, 200, (n, 2)), rng.uniform(0, 15, n), rng.uniform(-4, 4, n)])
     y = rng.normal(0, 3, (n, 2))
     noise = rng.uniform(0.5, 2.0, n) ** 2
-    hp = GPHyperparameters(90.0, 1.3, 3.0, 2.7)
+    hp = GPHyperparameters(90.0, 1.3, 3.0, 2.7, profile)
+    g = altitude_profile(x[:, 2], profile)
     kernel = ConstantKernel(hp.sigma_m_s**2, "fixed") * RBF(hp.lengths(), "fixed")
-    ref = GaussianProcessRegressor(kernel, alpha=noise, optimizer=None, normalize_y=False).fit(x, y)
+    ref = GaussianProcessRegressor(kernel, alpha=noise / g**2, optimizer=None, normalize_y=False)
+    ref.fit(x, y / g[:, None])
     xs = np.column_stack([rng.uniform(-300, 300, (50, 2)), rng.uniform(0, 20, 50), rng.uniform(-6, 6, 50)])
+    gs = altitude_profile(xs[:, 2], profile)
     mean_ref, std_ref = ref.predict(xs, return_std=True)
     post = Posterior(x, y, noise, hp)
     mean, var = post.mean_var(xs)
-    np.testing.assert_allclose(mean, mean_ref, rtol=1e-6, atol=1e-9)
-    np.testing.assert_allclose(np.sqrt(var), std_ref[:, 0], rtol=1e-6)
-    lml, _ = log_marginal_likelihood(hp.to_log(), x, y, noise)
-    assert lml == pytest.approx(ref.log_marginal_likelihood_value_, rel=1e-6)
+    np.testing.assert_allclose(mean, gs[:, None] * mean_ref, rtol=1e-6, atol=1e-9)
+    np.testing.assert_allclose(np.sqrt(var), gs * std_ref[:, 0], rtol=1e-6)
+    lml, _ = log_marginal_likelihood(hp.to_log(), x, y, noise, profile=profile)
+    assert lml == pytest.approx(ref.log_marginal_likelihood_value_ - 2 * np.sum(np.log(g)), rel=1e-6)
+
+
+def test_altitude_profile_shape():
+    # From memory, common NWP verification practice (docs/winds-gp.md): short-range wind RMSE peaks at the
+    # jet level (~250 hPa, ~10.5 km), about 0.55-0.65 of that at 850 hPa (~1.5 km) and at 100 hPa (~16 km),
+    # about 0.45-0.5 at 50-10 hPa (20-30 km). Tolerances: the figures are read from memory to +-0.05.
+    g = altitude_profile(np.array([1.5, 5.5, 10.5, 16.0, 20.5, 30.0]))
+    assert g[2] == pytest.approx(1.0)
+    assert 0.55 <= g[0] <= 0.7 and 0.7 <= g[1] <= 0.85 and 0.6 <= g[3] <= 0.72
+    assert 0.42 <= g[4] <= 0.52 and 0.42 <= g[5] <= 0.5
+    z = np.linspace(0.0, 40.0, 4001)
+    gz = altitude_profile(z)
+    assert np.all(gz <= 1.0) and np.all(gz > 0.4)
+    assert np.max(np.abs(np.diff(gz, 2))) < 1e-4  # smooth: no kinks (second difference at 10 m steps)
+    assert np.all(altitude_profile(z, "uniform") == 1.0)
+    with pytest.raises(ValueError, match="unknown altitude profile"):
+        GPHyperparameters(profile="flat")
 
 
 def test_gradient_matches_finite_differences():
@@ -125,7 +156,7 @@ def test_variance_shrinks_near_observations_and_returns_far_away():
     near, _ = field.std(obs.lat[:3], obs.lon[:3], obs.alt_m[:3], obs.time_s[:3])
     assert np.all(near < 0.6)  # about the observation error, far below the prior 3 m/s
     far, _ = field.std(LAT0 + 12.0, LON0, 10_000.0, T0)
-    assert float(far) == pytest.approx(3.0, rel=1e-6)
+    assert float(far) == pytest.approx(3.0 * float(altitude_profile(10.0)), rel=1e-6)  # prior sd s g(z)
     u_far, v_far = field.wind(LAT0 + 12.0, LON0, 10_000.0, T0)
     assert float(u_far) == pytest.approx(5.0, abs=1e-6) and float(v_far) == pytest.approx(0.0, abs=1e-6)
 
@@ -191,13 +222,13 @@ def test_background_error_field_samples_have_prior_sd():
     n = 2000
     u, v = members.wind(np.arange(n), np.full(n, LAT0 + 0.7), np.full(n, LON0 - 1.1),
                         np.full(n, 7_300.0), np.full(n, T0 + 5000.0))
-    sigma = background_error_sigma(24.0)
+    sigma = background_error_sigma(24.0) * float(altitude_profile(7.3))  # jet-level sd times g(z)
     # sd of a sample sd from 2000 draws: sigma / sqrt(2 * 2000) = 1.6 %; allow 5 % (3 sd)
     assert np.std(u) == pytest.approx(sigma, rel=0.05)
     assert np.std(v) == pytest.approx(sigma, rel=0.05)
     assert np.mean(u) == pytest.approx(10.0, abs=4 * sigma / np.sqrt(n))
-    std_u, _ = field.std(LAT0, LON0, 5000.0, T0)
-    assert float(std_u) == sigma
+    std_u, _ = field.std(np.full(3, LAT0), LON0, np.array([5_000.0, 10_500.0, 25_000.0]), T0)
+    np.testing.assert_allclose(std_u, background_error_sigma(24.0) * altitude_profile([5.0, 10.5, 25.0]))
 
 
 def test_background_error_sigma_grows_with_lead_time():

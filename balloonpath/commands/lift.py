@@ -9,7 +9,12 @@ import typer
 
 from balloonpath.errors import PlanError
 from balloonpath.flight.descent import DescentPlan, plan_descent
-from balloonpath.flight.lift import DEFAULT_ASCENT_DRAG_COEFFICIENT, LiftPlan, plan_lift
+from balloonpath.flight.lift import (
+    DEFAULT_ASCENT_DRAG_COEFFICIENT,
+    DEFAULT_DRAG_MODEL,
+    LiftPlan,
+    plan_lift,
+)
 from balloonpath.plan import load_plan
 
 
@@ -91,6 +96,7 @@ def register(app: typer.Typer) -> None:
                                    DEFAULT_ASCENT_DRAG_COEFFICIENT),
             launch_altitude_m=_pick(launch_elevation, elevation, 0.0),
             profile_step_m=step, source=source,
+            drag_model=b.drag_model if b else DEFAULT_DRAG_MODEL,
         )
         chute_d = _pick(parachute_diameter, chute.diameter_m if chute else None)
         descent = None
@@ -140,11 +146,13 @@ def format_lift(lp: LiftPlan, descent: DescentPlan | None = None) -> str:
     width = max(len(k) for k, _ in rows)
     lines = ["Lift plan", *(f"  {k:<{width}}  {v}" for k, v in rows), "", "Ascent profile"]
     lines.append(f"  {'altitude m':>10}  {'time min':>8}  {'rate m/s':>8}  {'diam m':>6}  "
-                 f"{'Re':>8}")
+                 f"{'Re':>8}  {'Cd':>5}")
     pr = lp.profile
-    for z, t, v, d, re_ in zip(pr.altitude_m, pr.time_s, pr.ascent_rate_m_s, pr.diameter_m,
-                               pr.reynolds_number, strict=True):
-        lines.append(f"  {z:>10.0f}  {t / 60:>8.1f}  {v:>8.2f}  {d:>6.2f}  {re_:>8.2g}")
+    cds = pr.drag_coefficient if pr.drag_coefficient is not None else [lp.drag_coefficient] * len(
+        pr.altitude_m)
+    for z, t, v, d, re_, cd in zip(pr.altitude_m, pr.time_s, pr.ascent_rate_m_s, pr.diameter_m,
+                                   pr.reynolds_number, cds, strict=True):
+        lines.append(f"  {z:>10.0f}  {t / 60:>8.1f}  {v:>8.2f}  {d:>6.2f}  {re_:>8.2g}  {cd:>5.2f}")
     lines += ["", "Assumptions"]
     lines += [textwrap.fill(a, 98, initial_indent="  - ", subsequent_indent="    ")
               for a in lp.assumptions]

@@ -23,8 +23,9 @@ References
 
 Assumptions (see docs/physics.md): ideal gas at ambient temperature and pressure (no superheat, no
 superpressure), a spherical envelope, steady ascent (drag balances the free lift's weight, no
-inertia or added mass), standard gravity g0 at all altitudes, and one drag coefficient for the whole
-ascent.
+inertia or added mass), standard gravity g0 at all altitudes, and an ascent drag law
+(:mod:`balloonpath.flight.drag`): one drag coefficient for the whole ascent (``"constant"``) or a
+drag coefficient that follows the Reynolds number through the drag crisis (``"reynolds"``).
 """
 
 from __future__ import annotations
@@ -44,6 +45,12 @@ from balloonpath.atmosphere import (
     dynamic_viscosity_pa_s,
 )
 from balloonpath.errors import PhysicsError, PracticeWarning, input_error
+from balloonpath.flight.drag import (
+    DRAG_MODELS,
+    ascent_drag_coefficient,
+    drag_crisis_shape,
+    solve_ascent_speed,
+)
 from balloonpath.flight.gas import (
     gas_density_kg_m3,
     gas_volume_m3,
@@ -60,6 +67,16 @@ DRAG_COEFFICIENT_NOTE = (
     "sphere's subcritical 0.47 (Re < 2e5) and its supercritical 0.1-0.2 (Re > 4e5) because a "
     "sounding balloon crosses the drag crisis during ascent (Re ~ 6e5 at launch, < 1e5 near "
     "burst); calibrate it from flown tracks"
+)
+
+#: Default ascent drag law (see docs/physics.md, "The ascent drag law", for the evidence).
+DEFAULT_DRAG_MODEL = "reynolds"
+
+REYNOLDS_DRAG_NOTE = (
+    "ascent drag coefficient follows the Reynolds number through the drag crisis: "
+    "Cd(Re) = Cd_launch S(Re) / S(Re_launch), S a logistic step in ln Re from 0.20 "
+    "(supercritical) to 0.47 (subcritical) centred at Re 2.63e5 (flight/drag.py); the drag "
+    "coefficient given is the one at launch (default 0.30); calibrate it from flown tracks"
 )
 
 #: Common practice for the launch ascent rate of team flights (m/s); radiosondes fly at about 5 m/s.
@@ -163,12 +180,63 @@ def reynolds_number(
     )
 
 
+def check_drag_model(model: str, source: str | Path | None = None) -> str:
+    """Return ``model`` if it is a known drag law, else raise a one-line :class:`PhysicsError`."""
+    if model not in DRAG_MODELS:
+        raise input_error(source, "drag_model", f"is {model!r}, not one of {', '.join(DRAG_MODELS)}",
+                          'give drag_model = "constant" or "reynolds"', cls=PhysicsError)
+    return model
+
+
+def ascent_speed_drag_law(
+    free_lift_kg: np.ndarray | float,
+    air_density_kg_m3: np.ndarray | float,
+    temperature_k: np.ndarray | float,
+    diameter_m: np.ndarray | float,
+    drag_coefficient: np.ndarray | float,
+    drag_model: str = "constant",
+    reference_reynolds: np.ndarray | float = np.nan,
+) -> np.ndarray:
+    """Steady ascent speed (m/s) under an ascent drag law (:mod:`balloonpath.flight.drag`).
+
+    Parameters
+    ----------
+    free_lift_kg, air_density_kg_m3, temperature_k, diameter_m : array_like
+        Free lift (kg), air density and temperature, balloon diameter (broadcast together).
+    drag_coefficient : array_like
+        ``"constant"``: the Cd; ``"reynolds"``: Cd at ``reference_reynolds`` (the launch).
+    drag_model : str
+        ``"constant"`` or ``"reynolds"``.
+    reference_reynolds : array_like
+        Launch Reynolds number of the nominal fill (``"reynolds"`` only).
+
+    Notes
+    -----
+    ``"constant"``: v = sqrt(2 L g0 / (rho Cd A)) (:func:`steady_ascent_rate`). ``"reynolds"``:
+    v^2 Cd(Re(v)) = 2 L g0 / (rho A) with Re = rho v D / mu(T), mu by Sutherland's law
+    ([NOAA1976]), solved by :func:`balloonpath.flight.drag.solve_ascent_speed` (safeguarded Newton
+    in ln v, tolerance 1e-12, at most 30 iterations, 3-5 typical).
+    """
+    if drag_model == "constant":
+        return steady_ascent_rate(free_lift_kg, air_density_kg_m3, drag_coefficient, diameter_m)
+    check_drag_model(drag_model)
+    rho = np.asarray(air_density_kg_m3, dtype=float)
+    d = np.asarray(diameter_m, dtype=float)
+    area = np.pi * d**2 / 4.0
+    force_ratio = 2.0 * np.asarray(free_lift_kg, dtype=float) * G0 / (rho * area)
+    per_speed = rho * d / dynamic_viscosity_pa_s(temperature_k)
+    speed, _ = solve_ascent_speed(force_ratio, per_speed, drag_coefficient, reference_reynolds)
+    return speed
+
+
 def ascent_rate_at_altitude(
     alt_m: np.ndarray | float,
     free_lift_kg: np.ndarray | float,
     gas_amount_mol_: np.ndarray | float,
     drag_coefficient: np.ndarray | float,
     atmosphere: Atmosphere | None = None,
+    drag_model: str = "constant",
+    reference_reynolds: np.ndarray | float = np.nan,
 ) -> np.ndarray:
     """Steady ascent rate (m/s) of a balloon holding a fixed amount of gas, at altitudes ``alt_m``.
 
@@ -177,23 +245,28 @@ def ascent_rate_at_altitude(
     alt_m : array_like
         Geometric altitudes, m.
     free_lift_kg, gas_amount_mol_, drag_coefficient : array_like
-        Free lift (kg), amount of gas (mol) and ascent drag coefficient; broadcast against
-        ``alt_m``.
+        Free lift (kg), amount of gas (mol) and ascent drag coefficient (``"reynolds"``: the one at
+        ``reference_reynolds``); broadcast against ``alt_m``.
     atmosphere : Atmosphere, optional
         Air state by altitude (default US Standard Atmosphere 1976).
+    drag_model : str
+        ``"constant"`` (default here, for backward compatibility) or ``"reynolds"``.
+    reference_reynolds : array_like
+        Launch Reynolds number of the nominal fill (``"reynolds"`` only).
 
     Notes
     -----
     V(z) = n R* T(z) / p(z) (ideal gas at ambient temperature and pressure), D = (6 V / pi)^(1/3)
-    and v = sqrt(2 L g0 / (rho Cd pi D^2 / 4)). The free lift L is constant with altitude because
-    the gross lift n (M_air - M_gas) is. With constant Cd this gives v(z) = v0 (rho0 / rho(z))^(1/6)
-    (REFERENCES.md §5).
+    and v = sqrt(2 L g0 / (rho Cd pi D^2 / 4)) (:func:`ascent_speed_drag_law`). The free lift L is
+    constant with altitude because the gross lift n (M_air - M_gas) is. With constant Cd this gives
+    v(z) = v0 (rho0 / rho(z))^(1/6) (REFERENCES.md §5).
     """
     atm = atmosphere if atmosphere is not None else StandardAtmosphere()
     state = atm.state(alt_m)
     volume = gas_volume_m3(gas_amount_mol_, state.temperature_k, state.pressure_pa)
-    return steady_ascent_rate(
-        free_lift_kg, state.density_kg_m3, drag_coefficient, sphere_diameter_m(volume)
+    return ascent_speed_drag_law(
+        free_lift_kg, state.density_kg_m3, state.temperature_k, sphere_diameter_m(volume),
+        drag_coefficient, drag_model, reference_reynolds,
     )
 
 
@@ -434,7 +507,8 @@ def neck_lift_for_ascent_rate(
 class AscentProfile:
     """Ascent rate, size, Reynolds number and elapsed time at altitudes from launch to burst.
 
-    All arrays have the same length; ``time_s`` is the time since launch.
+    All arrays have the same length; ``time_s`` is the time since launch; ``drag_coefficient`` is
+    the ascent drag coefficient of the drag law at each altitude.
     """
 
     altitude_m: np.ndarray
@@ -443,6 +517,7 @@ class AscentProfile:
     reynolds_number: np.ndarray
     air_density_kg_m3: np.ndarray
     time_s: np.ndarray
+    drag_coefficient: np.ndarray | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -451,6 +526,8 @@ class LiftPlan:
 
     Masses and lifts in kg, volumes in m3 at launch conditions, speeds in m/s, times in s.
     ``neck_lift_solved`` is True when the neck lift was found from ``target_ascent_m_s``.
+    ``drag_coefficient`` is the Cd at launch; ``drag_model`` the ascent drag law and
+    ``launch_reynolds_number`` its reference Reynolds number (``"reynolds"``).
     """
 
     gas: str
@@ -481,6 +558,8 @@ class LiftPlan:
     profile: AscentProfile
     atmosphere_name: str
     assumptions: tuple[str, ...]
+    drag_model: str = "constant"
+    burst_drag_coefficient: float = float("nan")
 
 
 def plan_lift(
@@ -498,6 +577,7 @@ def plan_lift(
     profile_step_m: float = 1_000.0,
     warn: bool = True,
     source: str | Path | None = None,
+    drag_model: str = "constant",
 ) -> LiftPlan:
     """Answer a team's fill question: how much gas, how fast up, how high, how long.
 
@@ -513,7 +593,8 @@ def plan_lift(
     gas, purity : str, float
         "helium" or "hydrogen", and the mole fraction of lifting gas (rest air).
     drag_coefficient : float
-        Ascent drag coefficient (default :data:`DEFAULT_ASCENT_DRAG_COEFFICIENT`).
+        Ascent drag coefficient (default :data:`DEFAULT_ASCENT_DRAG_COEFFICIENT`); with
+        ``drag_model="reynolds"`` the coefficient **at launch**.
     launch_altitude_m : float
         Launch altitude above sea level, m.
     atmosphere : Atmosphere, optional
@@ -526,6 +607,9 @@ def plan_lift(
         burst below 15 km (common practice).
     source : str or Path, optional
         File named in error messages.
+    drag_model : str
+        Ascent drag law: ``"constant"`` (default of this function) or ``"reynolds"``
+        (:mod:`balloonpath.flight.drag`; the plan's default is :data:`DEFAULT_DRAG_MODEL`).
 
     Returns
     -------
@@ -535,8 +619,13 @@ def plan_lift(
     -----
     - gas amount n = (N + m_e) / (M_air - M_gas);
     - launch volume V0 = n R* T0 / p0 and diameter D0 = (6 V0 / pi)^(1/3);
-    - free lift L = N - m_p; launch ascent rate v0 = sqrt(2 L g0 / (rho0 Cd pi D0^2 / 4));
-    - burst where n R* T / p = pi D_b^3 / 6 (:func:`burst_altitude_for`);
+    - free lift L = N - m_p; launch ascent rate v0 = sqrt(2 L g0 / (rho0 Cd pi D0^2 / 4)) with
+      both drag laws (under ``"reynolds"`` Cd equals ``drag_coefficient`` at the launch Reynolds
+      number Re0 = rho0 v0 D0 / mu0 by definition, so the neck lift solved for a target ascent rate
+      is the same root under both laws);
+    - v(z) at altitude from the drag law (:func:`ascent_speed_drag_law`);
+    - burst where n R* T / p = pi D_b^3 / 6 (:func:`burst_altitude_for`; the drag law plays no
+      part);
     - time to burst = integral of dz / v(z) from launch to burst (:func:`integrate_inverse_speed`).
 
     Raises
@@ -552,6 +641,7 @@ def plan_lift(
     _check_positive(
         burst_diameter_m, "burst_diameter_m", "give the burst diameter in metres", source
     )
+    check_drag_model(drag_model, source)
     if (neck_lift_kg is None) == (target_ascent_m_s is None):
         raise input_error(
             source,
@@ -596,9 +686,11 @@ def plan_lift(
     rho_gas = float(gas_density_kg_m3(g, t0, p0, purity))
     d0 = float(sphere_diameter_m(v0_gas))
     z_burst = burst_altitude_for(n, burst_diameter_m, atm, launch_altitude_m, source)
+    v_launch = float(steady_ascent_rate(fl, rho0, drag_coefficient, d0))
+    re_launch = float(reynolds_number(v_launch, d0, rho0, t0))
 
     def speed(z: np.ndarray) -> np.ndarray:
-        return ascent_rate_at_altitude(z, fl, n, drag_coefficient, atm)
+        return ascent_rate_at_altitude(z, fl, n, drag_coefficient, atm, drag_model, re_launch)
 
     step = max(float(profile_step_m), 1.0)
     first = (np.floor(launch_altitude_m / step) + 1.0) * step
@@ -608,15 +700,19 @@ def plan_lift(
     times = integrate_inverse_speed(alts, speed)
     st = atm.state(alts)
     diam = sphere_diameter_m(gas_volume_m3(n, st.temperature_k, st.pressure_pa))
-    rates = steady_ascent_rate(fl, st.density_kg_m3, drag_coefficient, diam)
+    rates = ascent_speed_drag_law(fl, st.density_kg_m3, st.temperature_k, diam, drag_coefficient,
+                                  drag_model, re_launch)
     re = reynolds_number(rates, diam, st.density_kg_m3, st.temperature_k)
-    profile = AscentProfile(alts, rates, diam, re, st.density_kg_m3, times)
+    cds = ascent_drag_coefficient(re, drag_coefficient, re_launch, drag_model)
+    profile = AscentProfile(alts, rates, diam, re, st.density_kg_m3, times, cds)
     gas_molar_mass = float(mixture_molar_mass_kg_mol(g, purity))
     assumptions = (
         "ideal gas at ambient temperature and pressure (no superheat, no superpressure)",
         "spherical envelope; steady ascent (drag balances the free lift's weight); "
         "standard gravity g0",
-        f"{DRAG_COEFFICIENT_NOTE}; Cd used = {drag_coefficient:g}",
+        (f"{DRAG_COEFFICIENT_NOTE}; Cd used = {drag_coefficient:g}" if drag_model == "constant"
+         else f"{REYNOLDS_DRAG_NOTE}; Cd at launch = {drag_coefficient:g} (Re {re_launch:.2g}), "
+              f"at burst {float(cds[-1]):.2f} (Re {float(re[-1]):.2g})"),
         f"gas {g.name}, purity {purity:g} (rest air); "
         "gas constant R* = 8.31432 J/(mol K) of USSA 1976",
         f"atmosphere: {getattr(atm, 'name', type(atm).__name__)}",
@@ -651,6 +747,8 @@ def plan_lift(
         profile=profile,
         atmosphere_name=str(getattr(atm, "name", type(atm).__name__)),
         assumptions=assumptions,
+        drag_model=drag_model,
+        burst_drag_coefficient=float(cds[-1]),
     )
     if warn:
         for message in practice_notes(plan):
@@ -707,6 +805,8 @@ def drag_coefficient_from_track(
     free_lift_kg: float,
     gas_amount_mol_: float,
     atmosphere: Atmosphere | None = None,
+    drag_model: str = "constant",
+    reference_reynolds: float | None = None,
 ) -> DragFit:
     """Fit the ascent drag coefficient to a flown ascent (altitude against time).
 
@@ -718,13 +818,23 @@ def drag_coefficient_from_track(
         The flight's free lift and gas amount (from its fill, e.g. via :func:`plan_lift`).
     atmosphere : Atmosphere, optional
         Default US Standard Atmosphere 1976; a sounding of the day is better.
+    drag_model : str
+        ``"constant"`` (default): fit the one Cd of the whole ascent. ``"reynolds"``: fit the Cd at
+        ``reference_reynolds`` of the drag-crisis law (:mod:`balloonpath.flight.drag`), i.e. the
+        plan's ``drag_coefficient`` under that law.
+    reference_reynolds : float, optional
+        ``"reynolds"`` only: the launch Reynolds number of the flight's fill (``LiftPlan.
+        launch_reynolds_number``); default the Reynolds number of the first observed interval.
 
     Notes
     -----
     Observed rates w_i = dz/dt by finite differences at interval midpoints. The model is
     w = k(z) Cd^(-1/2) with k = sqrt(2 L g0 / (rho pi D^2 / 4)); minimising sum (k_i s - w_i)^2
     over s = Cd^(-1/2) gives s = sum k_i w_i / sum k_i^2 (closed form). Intervals with w <= 0 are
-    skipped.
+    skipped. Under ``"reynolds"``, Cd_i = Cd_ref r_i with r_i = S(Re_i) / S(Re_ref) evaluated at
+    the observed Reynolds numbers Re_i = rho w_i D / mu, so k_i is replaced by k_i r_i^(-1/2) and
+    the same closed form gives s = Cd_ref^(-1/2). The local drag coefficients returned are the
+    model-free (k_i / w_i)^2 in both cases.
 
     Raises
     ------
@@ -749,13 +859,19 @@ def drag_coefficient_from_track(
     st = atm.state(zm)
     diam = sphere_diameter_m(gas_volume_m3(gas_amount_mol_, st.temperature_k, st.pressure_pa))
     k = steady_ascent_rate(free_lift_kg, st.density_kg_m3, 1.0, diam)
-    s = float(np.sum(k * w) / np.sum(k * k))
+    re_obs = reynolds_number(w, diam, st.density_kg_m3, st.temperature_k)
+    check_drag_model(drag_model)
+    kk = k
+    if drag_model == "reynolds":
+        re_ref = float(re_obs[0]) if reference_reynolds is None else float(reference_reynolds)
+        kk = k / np.sqrt(drag_crisis_shape(re_obs) / drag_crisis_shape(re_ref))
+    s = float(np.sum(kk * w) / np.sum(kk * kk))
     cd = 1.0 / s**2
     return DragFit(
         drag_coefficient=cd,
         altitude_m=zm,
         ascent_rate_m_s=w,
-        reynolds_number=reynolds_number(w, diam, st.density_kg_m3, st.temperature_k),
+        reynolds_number=re_obs,
         local_drag_coefficient=(k / w) ** 2,
-        rms_residual_m_s=float(np.sqrt(np.mean((k * s - w) ** 2))),
+        rms_residual_m_s=float(np.sqrt(np.mean((kk * s - w) ** 2))),
     )

@@ -11,7 +11,8 @@ Two modes, one interface:
 - ``"rates"``: constant ascent rate; burst at a given altitude; descent speed given at sea-level
   density.
 - ``"physics"``: the ascent rate follows the drag balance of a balloon holding a fixed amount of gas
-  (:func:`balloonpath.flight.lift.ascent_rate_at_altitude`); burst altitude from the burst diameter;
+  (:func:`balloonpath.flight.lift.ascent_rate_at_altitude`) under the plan's ascent drag law
+  (``[balloon] drag_model``, :mod:`balloonpath.flight.drag`); burst altitude from the burst diameter;
   the sea-level descent speed from the parachute and the payload mass
   (:mod:`balloonpath.flight.descent`).
 
@@ -29,12 +30,19 @@ import numpy as np
 from balloonpath.atmosphere import SEA_LEVEL_DENSITY, Atmosphere
 from balloonpath.errors import PhysicsWarning, PlanError, input_error
 from balloonpath.flight.descent import parachute_descent_rate
+from balloonpath.flight.drag import DRAG_MODELS
 from balloonpath.flight.gas import gas_volume_m3
-from balloonpath.flight.lift import LiftPlan, plan_lift, sphere_diameter_m, steady_ascent_rate
+from balloonpath.flight.lift import (
+    LiftPlan,
+    ascent_speed_drag_law,
+    plan_lift,
+    sphere_diameter_m,
+)
 from balloonpath.flight.phases import ASCENT, DESCENT, FLOAT, LANDED  # noqa: F401  (re-exported codes)
 from balloonpath.plan import Plan
 
 MODES = ("rates", "physics")
+_STRING_FIELDS = ("mode", "drag_model")
 
 
 @dataclass(frozen=True, eq=False)
@@ -60,6 +68,12 @@ class VerticalParams:
         Cut-down on reaching this altitude, or this long after launch (s); NaN = none.
     payload_mass_kg : ndarray
         Payload mass below the neck (kg); NaN in rates mode unless a ``[payload]`` table is given.
+    drag_model : str
+        Ascent drag law of all members: ``"constant"`` (default) or ``"reynolds"``
+        (:mod:`balloonpath.flight.drag`); used in physics mode only.
+    drag_reference_reynolds : ndarray, optional
+        ``"reynolds"``: the Reynolds number at which Cd equals ``ascent_drag_coefficient`` (the
+        nominal fill's launch Reynolds number); NaN (default) otherwise.
     """
 
     mode: str
@@ -74,13 +88,23 @@ class VerticalParams:
     cutdown_altitude_m: np.ndarray
     cutdown_after_s: np.ndarray
     payload_mass_kg: np.ndarray
+    drag_model: str = "constant"
+    drag_reference_reynolds: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         if self.mode not in MODES:
             raise ValueError(f"VerticalParams: mode {self.mode!r} is not one of {MODES}")
+        if self.drag_model not in DRAG_MODELS:
+            raise ValueError(
+                f"VerticalParams: drag_model {self.drag_model!r} is not one of {DRAG_MODELS}"
+            )
+        if self.drag_reference_reynolds is None:
+            object.__setattr__(
+                self, "drag_reference_reynolds", np.full(np.shape(self.burst_altitude_m), np.nan)
+            )
         n = None
         for f in fields(self):
-            if f.name == "mode":
+            if f.name in _STRING_FIELDS:
                 continue
             arr = np.atleast_1d(np.asarray(getattr(self, f.name), dtype=float))
             if arr.ndim != 1:
@@ -101,8 +125,10 @@ class VerticalParams:
         return int(self.burst_altitude_m.shape[0])
 
     def _map(self, fn) -> VerticalParams:  # noqa: ANN001
-        values = {f.name: fn(getattr(self, f.name)) for f in fields(self) if f.name != "mode"}
-        return VerticalParams(mode=self.mode, **values)
+        values = {
+            f.name: fn(getattr(self, f.name)) for f in fields(self) if f.name not in _STRING_FIELDS
+        }
+        return VerticalParams(mode=self.mode, drag_model=self.drag_model, **values)
 
     def take(self, idx: np.ndarray | list[int] | slice) -> VerticalParams:
         """A subset (or reordering) of members."""
@@ -140,7 +166,7 @@ def lift_plan_of(plan: Plan, atmosphere: Atmosphere | None = None, warn: bool = 
         b.envelope_mass_kg, p.mass_kg, b.burst_diameter_m, neck_lift_kg=b.neck_lift_kg,
         target_ascent_m_s=b.target_ascent_m_s, gas=b.gas, purity=b.gas_purity,
         drag_coefficient=b.drag_coefficient, launch_altitude_m=plan.launch.elevation_m,
-        atmosphere=atmosphere, warn=warn, source=plan.path,
+        atmosphere=atmosphere, warn=warn, source=plan.path, drag_model=b.drag_model,
     )
 
 
@@ -159,7 +185,8 @@ def vertical_params_from_plan(plan: Plan, atmosphere: Atmosphere | None = None) 
     Notes
     -----
     Physics mode calls :func:`balloonpath.flight.lift.plan_lift` at the launch elevation (solving
-    the neck lift for ``target_ascent_m_s`` when given) and takes the sea-level descent speed from
+    the neck lift for ``target_ascent_m_s`` when given) with the plan's ``drag_model`` (the
+    ``"reynolds"`` law's reference Reynolds number is the nominal launch one) and takes the sea-level descent speed from
     the parachute with the payload mass only (envelope remnants not counted; see
     :mod:`balloonpath.flight.descent`). Practice warnings (ascent rate outside 3-8 m/s, burst below
     15 km) are emitted as :class:`~balloonpath.errors.PracticeWarning`.
@@ -173,6 +200,7 @@ def vertical_params_from_plan(plan: Plan, atmosphere: Atmosphere | None = None) 
     """
     nan = np.array([np.nan])
     payload = np.array([plan.payload.mass_kg]) if plan.payload is not None else nan
+    drag = dict(drag_model="constant", drag_reference_reynolds=nan)
     if plan.rates is not None:
         r = plan.rates
         values = dict(
@@ -198,6 +226,7 @@ def vertical_params_from_plan(plan: Plan, atmosphere: Atmosphere | None = None) 
             burst_altitude_m=[lp.burst_altitude_m],
             descent_sea_level_m_s=[v0],
         )
+        drag = dict(drag_model=lp.drag_model, drag_reference_reynolds=[lp.launch_reynolds_number])
     burst = float(values["burst_altitude_m"][0])
     fl, cd = plan.float, plan.cutdown
     if fl is not None and fl.altitude_m >= burst:
@@ -227,6 +256,7 @@ def vertical_params_from_plan(plan: Plan, atmosphere: Atmosphere | None = None) 
             cd.after_min * 60.0 if cd is not None and cd.after_min is not None else np.nan
         ],
         payload_mass_kg=payload,
+        **drag,
         **values,
     )
 
@@ -252,10 +282,13 @@ def perturbed(
     Notes
     -----
     - Rates mode: ascent rate x f_a. Physics mode: free lift x f_a^2 with the gas amount held, so
-      the balloon's size is unchanged and its ascent rate scales by exactly f_a at every altitude
-      (v ~ sqrt(L)); this is the same as dividing the drag coefficient by f_a^2, and stands for the
-      uncertainty of both the fill and the drag coefficient. The reported launch ascent rate is
-      scaled by f_a too.
+      the balloon's size is unchanged; it stands for the uncertainty of both the fill and the drag
+      coefficient. Under the ``"constant"`` drag law the ascent rate scales by exactly f_a at every
+      altitude (v ~ sqrt(L)), the same as dividing Cd by f_a^2. Under ``"reynolds"`` the drag law
+      (Cd as a function of Re, with its reference Reynolds number) belongs to the envelope and is
+      kept, so a member with more lift flies at a higher Re and a slightly different Cd: its speed
+      scales by about f_a (within a few per cent through the drag crisis). The reported launch
+      ascent rate is scaled by f_a (exact for ``"constant"``).
     - Burst altitude x f_b in both modes (the altitude, not the burst diameter, is perturbed, so the
       spread is the same in both modes).
     - Sea-level descent speed x f_d.
@@ -303,12 +336,15 @@ def vertical_speed_m_s(
     ndarray
         Ascent speed in ASCENT (rates mode: the member's constant rate; physics mode:
         v = sqrt(2 L g0 / (rho Cd pi D^2 / 4)) with D from V = n R* T / p of the air at the
-        altitude), 0 in FLOAT and LANDED, and -v0 sqrt(rho0 / rho(z)) in DESCENT (rho0 = 1.2250 kg
-        m-3).
+        altitude and Cd from the drag law), 0 in FLOAT and LANDED, and -v0 sqrt(rho0 / rho(z)) in
+        DESCENT (rho0 = 1.2250 kg m-3).
 
     Notes
     -----
-    One atmosphere evaluation for the moving elements, no root finding: cost O(N).
+    One atmosphere evaluation for the moving elements: cost O(N). The ``"constant"`` law needs no
+    root finding; ``"reynolds"`` solves v^2 Cd(Re(v)) = 2 L g0 / (rho A) for all ascending elements
+    at once with safeguarded Newton steps in ln v (tolerance 1e-12, cap 30 iterations, 3-5
+    typical; :func:`balloonpath.flight.drag.solve_ascent_speed`).
     """
     ph = np.asarray(phase)
     z = np.asarray(alt_m, dtype=float)
@@ -335,11 +371,14 @@ def vertical_speed_m_s(
         t = np.asarray(st.temperature_k, dtype=float)[ups]
         p = np.asarray(st.pressure_pa, dtype=float)[ups]
         volume = gas_volume_m3(params.gas_amount_mol[mu], t, p)
-        speed[ups] = steady_ascent_rate(
+        speed[ups] = ascent_speed_drag_law(
             params.free_lift_kg[mu],
             rho[ups],
-            params.ascent_drag_coefficient[mu],
+            t,
             sphere_diameter_m(volume),
+            params.ascent_drag_coefficient[mu],
+            params.drag_model,
+            params.drag_reference_reynolds[mu],
         )
     downs = ~ups
     if downs.any():

@@ -8,7 +8,7 @@ function keeps the error correlated along each member's path.
 
 References
 ----------
-[WMO2018] WMO-No. 8, Guide to Instruments and Methods of Observation, Vol. I ch. 5 and Vol. III ch. 3:
+[WMO8] WMO-No. 8, Guide to Instruments and Methods of Observation, Vol. I ch. 5 and Vol. III ch. 3:
     the reported wind direction is the direction FROM which the wind blows, degrees clockwise from true north.
 """
 
@@ -28,7 +28,7 @@ CoveragePolicy = Literal["error", "hold"]
 def uv_from_direction_speed(
     direction_deg: np.ndarray | float, speed_m_s: np.ndarray | float
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Wind components from direction FROM (degrees true) and speed ([WMO2018] convention).
+    """Wind components from direction FROM (degrees true) and speed ([WMO8] convention).
 
     u = -s sin(d), v = -s cos(d): a wind from 270 deg (west) blows toward the east, u > 0.
     """
@@ -38,7 +38,7 @@ def uv_from_direction_speed(
 
 
 def direction_speed_from_uv(u: np.ndarray | float, v: np.ndarray | float) -> tuple[np.ndarray, np.ndarray]:
-    """Direction FROM (degrees true, [0, 360)) and speed of wind components ([WMO2018] convention)."""
+    """Direction FROM (degrees true, [0, 360)) and speed of wind components ([WMO8] convention)."""
     u = np.asarray(u, dtype=float)
     v = np.asarray(v, dtype=float)
     return np.degrees(np.arctan2(-u, -v)) % 360.0, np.hypot(u, v)

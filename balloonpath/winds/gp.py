@@ -55,7 +55,7 @@ from balloonpath.winds.gp_sample import (
 from balloonpath.winds.observations import WindObservations
 
 FORMAT = "balloonpath-gp-wind-field"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2  # 2: kernel with an altitude profile (version-1 files load with profile "uniform")
 
 #: Background error model (from memory; order of magnitude of global-model upper-air vector-wind RMSE,
 #: about 3.5 m/s at analysis time growing to 7-8 m/s at two days): per-component sd
@@ -104,7 +104,7 @@ def background_error_sigma(lead_time_h: float) -> float:
 class Posterior:
     """GP posterior of the residuals: exact (Algorithm 2.1) or DTC with inducing points.
 
-    mean(x) = k(x, P) beta (beta has one column per output), var(x) = s^2 - k^T B k with
+    mean(x) = k(x, P) beta (beta has one column per output), var(x) = s^2 g(z)^2 - k^T B k with
     exact: P = X, beta = (K + Lambda)^-1 y, B = (K + Lambda)^-1;
     DTC ([RW2006] §8.3.3): P = Z, A = K_ZZ + K_ZX Lambda^-1 K_XZ, beta = A^-1 K_ZX Lambda^-1 y,
     B = K_ZZ^-1 - A^-1.
@@ -153,7 +153,7 @@ class Posterior:
         """Posterior mean (k, 2) and latent variance (k,) at points xs (k, 4), in blocks of 2048."""
         mean = np.empty((xs.shape[0], self.beta.shape[1]))
         var = np.empty(xs.shape[0]) if want_var else None
-        s2 = self.hp.sigma_m_s**2
+        s2 = self.hp.sigma_m_s**2 * self.hp.g(xs[:, 2]) ** 2 if want_var else None
         for s in range(0, xs.shape[0], 2048):
             ks = se_kernel(self.points, xs[s : s + 2048], self.hp)  # (n, b)
             mean[s : s + 2048] = ks.T @ self.beta
@@ -165,17 +165,18 @@ class Posterior:
                     v1 = solve_triangular(self.chol_zz, ks, lower=True, check_finite=False)
                     v2 = solve_triangular(self.chol_a, ks, lower=True, check_finite=False)
                     red = np.sum(v1 * v1, axis=0) - np.sum(v2 * v2, axis=0)
-                var[s : s + 2048] = np.maximum(s2 - red, 0.0)
+                var[s : s + 2048] = np.maximum(s2[s : s + 2048] - red, 0.0)
         return mean, var
 
     def mean_on_grid(self, grid: CorridorGrid) -> np.ndarray:
         """Exact posterior mean at every grid node, shape (G, 2), using the kernel's separability.
 
         mean[a,b,c,d] = sum_i s^2 kx[a,i] ky[b,i] kz[c,i] kt[d,i] beta_i, computed as one matrix product
-        (n_x n_y, n) @ (n, n_z n_t) per output.
+        (n_x n_y, n) @ (n, n_z n_t) per output; the altitude factor kz carries g(z_c) g(z_i).
         """
         ell = self.hp.lengths()
         k1 = [np.exp(-0.5 * ((grid.axis(d)[:, None] - self.points[None, :, d]) / ell[d]) ** 2) for d in range(4)]
+        k1[2] *= self.hp.g(grid.axis(2))[:, None] * self.hp.g(self.points[:, 2])[None, :]
         left = (k1[0][:, None, :] * k1[1][None, :, :]).reshape(-1, self.n_points)
         right = (k1[2][:, None, :] * k1[3][None, :, :]).reshape(-1, self.n_points)
         out = np.empty((grid.size, self.beta.shape[1]))
@@ -306,10 +307,14 @@ class GPWindField:
         return ub + mean[:, 0].reshape(shape), vb + mean[:, 1].reshape(shape)
 
     def std(self, lat, lon, alt_m, time_s) -> tuple[np.ndarray, np.ndarray]:
-        """Posterior (latent) standard deviation of u and v, m/s (equal for both components)."""
+        """Posterior (latent) standard deviation of u and v, m/s (equal for both components).
+
+        Without observations: the prior sd ``sigma_m_s * g(z)`` (``gp_kernels.altitude_profile``).
+        """
         shape = np.broadcast(np.asarray(lat), np.asarray(lon), np.asarray(alt_m), np.asarray(time_s)).shape
         if self.posterior is None:
-            s = np.full(shape, self.hyperparameters.sigma_m_s)
+            z_km = np.broadcast_to(np.asarray(alt_m, dtype=float), shape) / 1e3
+            s = self.hyperparameters.sigma_m_s * self.hyperparameters.g(z_km)
             return s, s.copy()
         _, var = self.posterior.mean_var(self._local(lat, lon, alt_m, time_s))
         s = np.sqrt(var).reshape(shape)
@@ -391,7 +396,7 @@ class GPWindField:
             raise input_error(None, "members", f"must be >= 1, got {n_total}", "ask for at least one member")
         grid, use = self._sample_grid_and_points(n_total, memory_budget_bytes)
         hp = self.hyperparameters
-        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use)
+        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use, hp.profile)
         mean = self.posterior.mean_on_grid(grid) if self.posterior is not None else np.zeros((grid.size, 2))
         return MemberSampler(self.background, self._fast_projection(), self.corridor.time_ref_s, sampler, mean)
 
@@ -433,7 +438,7 @@ class GPWindField:
             raise input_error(None, "members", f"must be >= 1, got {n_members}", "ask for at least one member")
         grid, use = self._sample_grid_and_points(n_members, memory_budget_bytes)
         hp = self.hyperparameters
-        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use)
+        sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use, hp.profile)
         dev = np.empty((n_members, grid.size, 2), dtype=np.float32)
         for m0 in range(0, n_members, BATCH_MEMBERS):
             b = min(BATCH_MEMBERS, n_members - m0)
@@ -450,7 +455,7 @@ class GPWindField:
             self.projection, float(lat_c.min()) - 0.2, float(lat_c.max()) + 0.2, float(np.abs(dlon).max()) + 0.2
         )
         return GridMemberWinds(
-            self.background, fast, self.corridor.time_ref_s, grid, hp.lengths(), mean, dev
+            self.background, fast, self.corridor.time_ref_s, grid, hp.lengths(), mean, dev, profile=hp.profile
         )
 
     # -- persistence
@@ -480,13 +485,17 @@ class GPWindField:
 
 
 class BackgroundErrorField(GPWindField):
-    """The background with a prior-only error model: sd ``sigma_m_s`` everywhere, correlated as the kernel.
+    """The background with a prior-only error model: sd ``sigma_m_s * g(z)``, correlated as the kernel.
 
     Parameters
     ----------
     background : WindField
     sigma_m_s : float
-        Per-component error sd (e.g. ``background_error_sigma(lead_time_h)``).
+        Per-component error sd at the peak of the altitude profile (the jet level), e.g.
+        ``background_error_sigma(lead_time_h)``.
+    profile : {"nwp", "uniform"}
+        Altitude profile g(z) of the error amplitude (``gp_kernels.altitude_profile``); default "nwp", the
+        same as fitted fields.
     length_h_km, length_z_km, length_t_h : float
         Correlation length scales of the error (defaults: ``GPHyperparameters`` defaults, from memory).
     center : (lat, lon) or (lat, lon, time_s)
@@ -509,8 +518,10 @@ class BackgroundErrorField(GPWindField):
         time_max_s: float | None = None,
         info: dict | None = None,
         background_spec: dict | None = None,
+        profile: str = "nwp",
     ) -> None:
-        hp = GPHyperparameters(float(length_h_km), float(length_z_km), float(length_t_h), float(sigma_m_s))
+        hp = GPHyperparameters(float(length_h_km), float(length_z_km), float(length_t_h), float(sigma_m_s),
+                               profile)
         corridor = default_corridor(background, center, corridor_radius_km, alt_max_m, time_min_s, time_max_s)
         info = dict(info or {})
         info.setdefault("mode", "background-error")
@@ -640,6 +651,7 @@ def fit_wind_field(
             background, hp0.sigma_m_s, hp0.length_h_km, hp0.length_z_km, hp0.length_t_h,
             center=center if center is not None else (0.0, 0.0), corridor_radius_km=corridor_radius_km,
             alt_max_m=alt_max_m, info={"lead_time_h": lead_time_h}, background_spec=background_spec,
+            profile=hp0.profile,
         )
     center = _center_of(obs) if center is None else tuple(center)
     if len(center) < 3:
@@ -687,7 +699,7 @@ def fit_wind_field(
     posterior = Posterior(x, r, var, hp, inducing)
     if not posterior.sparse:
         info["log_marginal_likelihood"] = float(
-            log_marginal_likelihood(hp.to_log(), x, r, var, np.zeros(4, bool))[0]
+            log_marginal_likelihood(hp.to_log(), x, r, var, np.zeros(4, bool), hp.profile)[0]
         ) if n <= 2000 else None
     info["hyperparameters"] = hp.as_dict()
     obs_points = np.column_stack([obs.lat, obs.lon, obs.alt_m, obs.time_s])
@@ -765,7 +777,10 @@ def load_wind_field(
                           "give a file written by `balloonpath winds fit`")
     loader = background_loader or default_background_loader
     background = loader(meta["background"])
-    hp = GPHyperparameters(**meta["hyperparameters"])
+    hp_meta = dict(meta["hyperparameters"])
+    if int(meta.get("version", 1)) < 2:
+        hp_meta.setdefault("profile", "uniform")  # version 1: stationary kernel
+    hp = GPHyperparameters(**hp_meta)
     corridor = Corridor(**meta["corridor"])
     posterior = None
     if "x" in arrays:

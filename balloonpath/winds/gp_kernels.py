@@ -1,11 +1,14 @@
 """Kernel, log marginal likelihood with analytic gradient, and hyperparameter search for the wind GP.
 
 The GP works in local coordinates ``X = [east_km, north_km, alt_km, time_h]`` (see ``gp.py``). The kernel is an
-anisotropic squared exponential with one horizontal, one vertical and one time length scale:
+anisotropic squared exponential with one horizontal, one vertical and one time length scale, whose amplitude
+varies with altitude through a fixed profile g(z) of background-error amplitude (:func:`altitude_profile`):
 
-    k(a, b) = s^2 exp(-1/2 [ ((dx^2 + dy^2) / l_h^2) + dz^2 / l_z^2 + dt^2 / l_t^2 ])
+    k(a, b) = s^2 g(z_a) g(z_b) exp(-1/2 [ ((dx^2 + dy^2) / l_h^2) + dz^2 / l_z^2 + dt^2 / l_t^2 ])
 
-It is a product of one-dimensional kernels, which ``gp_sample.py`` exploits (Kronecker structure on a grid).
+(a stationary kernel times g(z_a) g(z_b) is a valid, non-stationary covariance: the covariance of
+g(z) f(x) for a stationary f.) It is still a product of one-dimensional kernels, the altitude factor being
+diag(g) K_z diag(g), which ``gp_sample.py`` exploits (Kronecker structure on a grid).
 The u and v residuals are two independent GPs sharing this kernel, so one Cholesky factor serves both.
 
 References
@@ -13,6 +16,10 @@ References
 [RW2006] C. E. Rasmussen & C. K. I. Williams, Gaussian Processes for Machine Learning, MIT Press 2006:
     Algorithm 2.1 p. 19 (Cholesky prediction and log marginal likelihood), eq. 5.9 p. 114 (gradient of the
     log marginal likelihood), eq. 4.9 (squared exponential with automatic relevance determination).
+[NWPverif] Typical verification of global NWP wind forecasts against radiosondes (WMO/CBS exchanged scores,
+    ECMWF and Met Office verification pages): vector-wind RMSE of short-range forecasts is largest at the
+    jet level (~250 hPa, ~10 km), roughly half that near 50 hPa (~20 km) and in the lower troposphere;
+    common practice, figures from memory (see :data:`NWP_PROFILE`).
 [Byrd1995] R. H. Byrd, P. Lu, J. Nocedal & C. Zhu, "A limited memory algorithm for bound constrained
     optimization", SIAM J. Sci. Comput. 16:1190-1208 (1995) (L-BFGS-B, used through scipy.optimize).
 """
@@ -42,19 +49,76 @@ BOUNDS = {
 JITTERS = (0.0, 1e-8, 1e-6, 1e-4, 1e-2)
 
 
+#: Altitude profile of background-error amplitude, normalised to 1 at its peak (jet level). From memory,
+#: common NWP verification practice ([NWPverif]): short-range vector-wind RMSE against radiosondes in the
+#: mid-latitudes, relative to its jet-level (~250 hPa) value, is about 0.55-0.6 near the ground and at
+#: 850 hPa (~1.5 km), 0.75 at 500 hPa (~5.5 km), 1 at 250 hPa (~10.5 km), 0.65 at 100 hPa (~16 km) and
+#: 0.45-0.5 at 50-10 hPa (20-30 km). Represented by two half-Gaussians about the jet level z_j (C1 at z_j):
+#: g(z) = f + (1 - f) exp(-(z - z_j)^2 / (2 w^2)) with (f, w) = (0.5, 5 km) below z_j and (0.45, 4 km)
+#: above.
+NWP_PROFILE = {"jet_km": 10.5, "floor_below": 0.5, "width_below_km": 5.0, "floor_above": 0.45,
+               "width_above_km": 4.0}
+#: Profiles by name: "nwp" (default, :data:`NWP_PROFILE`) and "uniform" (g = 1: the stationary kernel).
+PROFILES = ("nwp", "uniform")
+
+
+def altitude_profile(alt_km: np.ndarray | float, profile: str = "nwp") -> np.ndarray:
+    """Relative amplitude g(z) of the background wind error at altitude z (1 at the jet level).
+
+    Parameters
+    ----------
+    alt_km : array_like
+        Altitude, km (any shape).
+    profile : {"nwp", "uniform"}
+        ``"uniform"`` returns ones (stationary kernel).
+
+    Returns
+    -------
+    ndarray
+        g(z), same shape as ``alt_km``, in (0, 1].
+
+    Notes
+    -----
+    g(z) = f + (1 - f) exp(-(z - z_j)^2 / (2 w^2)), (f, w) = (0.5, 5 km) for z < z_j and (0.45, 4 km) above,
+    z_j = 10.5 km (:data:`NWP_PROFILE`; shape from common NWP verification practice, figures from memory,
+    [NWPverif]). Smooth (C1 at z_j, C-infinity elsewhere), bounded away from 0.
+    """
+    z = np.asarray(alt_km, dtype=float)
+    if profile == "uniform":
+        return np.ones_like(z)
+    if profile != "nwp":
+        raise ValueError(f"unknown altitude profile {profile!r}; choose one of {PROFILES}")
+    p = NWP_PROFILE
+    below = z < p["jet_km"]
+    floor = np.where(below, p["floor_below"], p["floor_above"])
+    width = np.where(below, p["width_below_km"], p["width_above_km"])
+    return floor + (1.0 - floor) * np.exp(-0.5 * ((z - p["jet_km"]) / width) ** 2)
+
+
 @dataclass(frozen=True)
 class GPHyperparameters:
     """Kernel hyperparameters: length scales and signal standard deviation (per wind component).
 
     Defaults (used when too few observations to learn them) are from memory, order-of-magnitude values for
     the correlation of forecast wind errors in the free troposphere: 150 km horizontally, 1.5 km
-    vertically, 6 h in time; the signal sd is set from the background error model.
+    vertically, 6 h in time; the signal sd is set from the background error model. ``sigma_m_s`` is the
+    sd at the peak of the altitude profile (the jet level); at altitude z the prior sd is
+    ``sigma_m_s * altitude_profile(z, profile)``. ``profile`` is a fixed model choice, not learned.
     """
 
     length_h_km: float = 150.0
     length_z_km: float = 1.5
     length_t_h: float = 6.0
     sigma_m_s: float = 3.0
+    profile: str = "nwp"
+
+    def __post_init__(self) -> None:
+        if self.profile not in PROFILES:
+            raise ValueError(f"unknown altitude profile {self.profile!r}; choose one of {PROFILES}")
+
+    def g(self, alt_km: np.ndarray | float) -> np.ndarray:
+        """The altitude profile g(z) of this kernel (:func:`altitude_profile`)."""
+        return altitude_profile(alt_km, self.profile)
 
     def lengths(self) -> np.ndarray:
         """Length scale per input column [east, north, alt, time] (km, km, km, h)."""
@@ -65,14 +129,14 @@ class GPHyperparameters:
         return np.log([self.length_h_km, self.length_z_km, self.length_t_h, self.sigma_m_s])
 
     @staticmethod
-    def from_log(theta: np.ndarray) -> GPHyperparameters:
-        """Inverse of :meth:`to_log`."""
+    def from_log(theta: np.ndarray, profile: str = "nwp") -> GPHyperparameters:
+        """Inverse of :meth:`to_log` (the profile is given separately)."""
         e = np.exp(np.asarray(theta, dtype=float))
-        return GPHyperparameters(float(e[0]), float(e[1]), float(e[2]), float(e[3]))
+        return GPHyperparameters(float(e[0]), float(e[1]), float(e[2]), float(e[3]), profile)
 
-    def as_dict(self) -> dict[str, float]:
+    def as_dict(self) -> dict[str, float | str]:
         """Plain dict (JSON)."""
-        return {k: float(v) for k, v in asdict(self).items()}
+        return {k: (v if isinstance(v, str) else float(v)) for k, v in asdict(self).items()}
 
 
 def se_kernel(a: np.ndarray, b: np.ndarray, hp: GPHyperparameters) -> np.ndarray:
@@ -94,16 +158,24 @@ def se_kernel(a: np.ndarray, b: np.ndarray, hp: GPHyperparameters) -> np.ndarray
 
     Notes
     -----
-    k(a, b) = s^2 exp(-r^2 / 2), r^2 = sum_d (a_d - b_d)^2 / l_d^2 ([RW2006] eq. 4.9, ARD form).
+    k(a, b) = s^2 g(z_a) g(z_b) exp(-r^2 / 2), r^2 = sum_d (a_d - b_d)^2 / l_d^2 ([RW2006] eq. 4.9, ARD
+    form; g = :func:`altitude_profile`, 1 for ``profile="uniform"``).
     """
+    a = np.asarray(a, dtype=float)
+    b = np.asarray(b, dtype=float)
     ell = hp.lengths()
-    sa = np.asarray(a, dtype=float) / ell
-    sb = np.asarray(b, dtype=float) / ell
+    sa = a / ell
+    sb = b / ell
     r2 = (
         np.sum(sa**2, axis=1)[:, None] + np.sum(sb**2, axis=1)[None, :] - 2.0 * sa @ sb.T
     )
     np.maximum(r2, 0.0, out=r2)
-    return hp.sigma_m_s**2 * np.exp(-0.5 * r2)
+    out = np.exp(-0.5 * r2)
+    out *= hp.sigma_m_s**2
+    if hp.profile != "uniform":
+        out *= hp.g(a[:, 2])[:, None]
+        out *= hp.g(b[:, 2])[None, :]
+    return out
 
 
 def robust_cholesky(matrix: np.ndarray, what: str = "kernel matrix") -> tuple[np.ndarray, float]:
@@ -143,6 +215,7 @@ def log_marginal_likelihood(
     y: np.ndarray,
     noise_var: np.ndarray,
     free: np.ndarray | None = None,
+    profile: str = "nwp",
 ) -> tuple[float, np.ndarray]:
     """Log marginal likelihood of the u and v residuals and its gradient in log hyperparameters.
 
@@ -158,6 +231,8 @@ def log_marginal_likelihood(
         Observation error variance per point (heteroscedastic, fixed).
     free : ndarray of bool, shape (4,), optional
         Which gradient entries to compute (others are returned as 0).
+    profile : str
+        Altitude profile of the kernel (:func:`altitude_profile`; fixed, not a parameter).
 
     Returns
     -------
@@ -173,9 +248,10 @@ def log_marginal_likelihood(
     [RW2006] eq. 5.9: d log p / d theta_j = 1/2 tr((alpha alpha^T - K^-1) dK/dtheta_j); summed over the k
     outputs this is 1/2 tr((A A^T - k K^-1) dK/dtheta_j) with A = [alpha_1 .. alpha_k].
     For the squared exponential, dK/dlog l_d = K_f * (dx_d / l_d)^2 (elementwise; the horizontal scale
-    collects east and north), dK/dlog s = 2 K_f.
+    collects east and north), dK/dlog s = 2 K_f. The altitude profile multiplies K_f by the fixed
+    diag(g) . diag(g), which does not depend on theta, so these formulas hold unchanged.
     """
-    hp = GPHyperparameters.from_log(theta)
+    hp = GPHyperparameters.from_log(theta, profile)
     n, k_out = y.shape
     kf = se_kernel(x, x, hp)
     ky = kf + np.diag(noise_var)
@@ -265,14 +341,14 @@ def optimize_hyperparameters(
     free = np.asarray(free, dtype=bool)
     idx = np.flatnonzero(free)
     if idx.size == 0:
-        lml, _ = log_marginal_likelihood(theta0, x, y, noise_var, free)
-        return OptimizeResult(GPHyperparameters.from_log(theta0), lml, len(x), 0, (), ())
+        lml, _ = log_marginal_likelihood(theta0, x, y, noise_var, free, initial.profile)
+        return OptimizeResult(GPHyperparameters.from_log(theta0, initial.profile), lml, len(x), 0, (), ())
 
     def objective(p: np.ndarray) -> tuple[float, np.ndarray]:
         theta = theta0.copy()
         theta[idx] = p
         try:
-            lml, grad = log_marginal_likelihood(theta, x, y, noise_var, free)
+            lml, grad = log_marginal_likelihood(theta, x, y, noise_var, free, initial.profile)
         except np.linalg.LinAlgError:
             return 1e25, np.zeros(idx.size)
         return -lml, -grad[idx]
@@ -295,6 +371,6 @@ def optimize_hyperparameters(
     theta[idx] = best.x
     at = tuple(NAMES[i] for i in idx if min(theta[i] - lo[i], hi[i] - theta[i]) < 0.01)
     return OptimizeResult(
-        GPHyperparameters.from_log(theta), -float(best.fun), len(x), len(starts),
+        GPHyperparameters.from_log(theta, initial.profile), -float(best.fun), len(x), len(starts),
         tuple(NAMES[i] for i in idx), at,
     )

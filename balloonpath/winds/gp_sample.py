@@ -12,7 +12,13 @@ Method (see docs/winds-gp.md, "Correlated samples"):
 4. Matheron's rule ([Wilson2020]): the posterior deviation is e = f~ + k~(., P) c with
    c = -(K + Lambda)^-1 (f~(P) + eps) (exact GP, eps ~ N(0, Lambda)) or the sparse analogue; the cross term
    k~(., P) c is computed on the grid as K_gg W^T c (scatter, then Kronecker matrix product).
-5. Member k's wind = background + gridded posterior mean + deviation of member k (float32 storage).
+5. Member k's wind = background + gridded posterior mean + g(z) x deviation of member k (float32 storage).
+
+Altitude profile: the kernel is s^2 g(z) g(z') k0 with k0 the stationary separable kernel (``gp_kernels``),
+i.e. the covariance of g(z) f0(x), f0 stationary. The grid holds deviations of the *normalised* process
+e0 = e / g(z) (prior f0, stationary, so steps 2-3 are unchanged) and ``GridMemberWinds`` multiplies by
+g(z) at the evaluation point. In the update the observation rows carry g(z_i): with G_P = diag(g(z_P)),
+f~(P) = G_P W f0, K~ = s^2 G_P K0~ G_P, and e0 = s f0~ + s^2 K0_gg W^T G_P c.
 
 References
 ----------
@@ -35,7 +41,7 @@ from scipy.linalg import cho_solve
 
 from balloonpath.errors import FitWarning
 from balloonpath.geodesy import LocalProjection, normalize_longitude
-from balloonpath.winds.gp_kernels import robust_cholesky
+from balloonpath.winds.gp_kernels import altitude_profile, robust_cholesky
 
 if TYPE_CHECKING:
     from balloonpath.winds.field import WindField
@@ -275,13 +281,16 @@ class GridSampler:
         sigma_m_s: float,
         posterior: Posterior | None,
         use: np.ndarray | None = None,
+        profile: str = "uniform",
     ) -> None:
         """``use`` (bool per posterior point) selects the observations that condition the exact-GP samples
-        (those near the corridor); the DTC path always uses all inducing points."""
+        (those near the corridor); the DTC path always uses all inducing points. ``profile``: the kernel's
+        altitude profile; the draws are deviations of the normalised process e / g(z)."""
         self.grid = grid
         self.lengths = np.asarray(lengths, dtype=float)
         self.sigma = float(sigma_m_s)
         self.posterior = posterior
+        self.profile = profile
         corr = [_corr_1d(grid.axis(d), self.lengths[d]) for d in range(4)]
         self.corr = corr
         self.roots = [_sqrt_psd(k) for k in corr]
@@ -293,6 +302,7 @@ class GridSampler:
             self.use = np.ones(len(pts), bool) if (use is None or posterior.sparse) else np.asarray(use, bool)
             pts = pts[self.use]
             self.noise_var = None if posterior.sparse else posterior.noise_var[self.use]
+            self.g_obs = altitude_profile(pts[:, 2], profile)  # g(z_i) of the conditioning points
             idx, w, c = interpolation_weights(grid, pts, self.lengths)
             n = idx.shape[0]
             rows = np.repeat(np.arange(n), 16)
@@ -304,6 +314,8 @@ class GridSampler:
                 # Condition the interpolated process on the data with its own kernel k~ (consistent
                 # Matheron update): S = K~(X, X) + Lambda.
                 s_mat = interpolated_kernel(grid, pts, self.lengths, self.sigma, corr)
+                s_mat *= self.g_obs[:, None]
+                s_mat *= self.g_obs[None, :]
                 s_mat[np.diag_indices_from(s_mat)] += self.noise_var
                 self.s_chol, _ = robust_cholesky(s_mat, "interpolated kernel matrix for the samples")
         else:
@@ -316,8 +328,9 @@ class GridSampler:
         Notes
         -----
         Prior: g = s (R_0 (x) ... (x) R_3) xi with R_d (n_d x r_d) the low-rank square root of K_d.
-        Matheron update ([Wilson2020]): e = g + s^2 (K_0 (x) ... (x) K_3) W^T c with
-        c = -(K~ + Lambda)^-1 (W g + eps) (exact GP) or ``posterior.sample_coefficients`` (DTC).
+        Matheron update ([Wilson2020]): e = g + s^2 (K_0 (x) ... (x) K_3) W^T G_P c with
+        c = -(K~ + Lambda)^-1 (G_P W g + eps) (exact GP) or ``posterior.sample_coefficients`` (DTC),
+        G_P = diag(g(z_P)). The result is the deviation of the normalised process (divide by g(z)).
         """
         xi = rng.standard_normal((self.rank_size, n_fields))
         return self.draw_from_normals(xi, None, rng)
@@ -341,6 +354,7 @@ class GridSampler:
         g = self.sigma * _kron_apply(self.roots, xi)  # (n_fields, G)
         if self.w_obs is not None:
             f_at_points = self.w_obs @ g.T  # (n, n_fields)
+            f_at_points *= self.g_obs[:, None]
             if update_normals is None:
                 update_normals = rng.standard_normal(f_at_points.shape)
             if self.s_chol is not None:
@@ -348,8 +362,8 @@ class GridSampler:
                 coef = -cho_solve((self.s_chol, True), f_at_points + eps, check_finite=False)
             else:
                 coef = self.posterior.sample_coefficients(f_at_points, None, normals=update_normals)
-            # K_gg W^T coef with K_d = R_d R_d^T: compress by R^T, then expand by R
-            low = _kron_apply(self.roots_t, self.w_obs_t @ coef)  # (n_fields, r)
+            # K_gg W^T G_P coef with K_d = R_d R_d^T: compress by R^T, then expand by R
+            low = _kron_apply(self.roots_t, self.w_obs_t @ (coef * self.g_obs[:, None]))  # (n_fields, r)
             g += self.sigma**2 * _kron_apply(self.roots, np.ascontiguousarray(low.T))
         return g
 
@@ -359,7 +373,8 @@ class GridMemberWinds:
 
     ``wind(members, lat, lon, alt_m, time_s)`` evaluates member ``members[k]`` at point k. Points outside
     the corridor grid are held at its edge for the GP part (the background is evaluated at the true point).
-    Deviations are stored as float32, shape (N, G, 2).
+    Deviations are stored as float32, shape (N, G, 2), normalised by the altitude profile: the deviation at
+    a point is g(z) times the interpolated grid value (``profile``, see ``gp_kernels.altitude_profile``).
     """
 
     def __init__(
@@ -372,10 +387,13 @@ class GridMemberWinds:
         mean_nodes: np.ndarray,
         deviations: np.ndarray,
         member_ids: np.ndarray | None = None,
+        profile: str = "uniform",
     ) -> None:
         """``member_ids`` (optional, distinct, >= 0): the member number of each row of ``deviations``
-        (a chunk of a larger ensemble); default rows 0..N-1."""
+        (a chunk of a larger ensemble); default rows 0..N-1. ``profile``: altitude profile that scales the
+        deviations at the evaluation point."""
         self.background = background
+        self.profile = profile
         self.projection = projection
         self.time_ref_s = float(time_ref_s)
         self.grid = grid
@@ -421,6 +439,8 @@ class GridMemberWinds:
         w3 = w[:, None, :]
         mean = np.matmul(w3, np.take(self.mean_nodes, idx, axis=0))[:, 0, :]
         dev = np.matmul(w3, np.take(self._flat, idx + (members * self._size)[:, None], axis=0))[:, 0, :]
+        if self.profile != "uniform":
+            c = c * altitude_profile(pts[:, 2], self.profile)
         out = mean + c[:, None] * dev
         return out[:, 0], out[:, 1]
 
@@ -503,5 +523,5 @@ class MemberSampler:
             dev[want, :, 1] = fields[b + pos]
         return GridMemberWinds(
             self.background, self.projection, self.time_ref_s, self.grid, self.sampler.lengths,
-            self.mean_nodes, dev, member_ids=ids,
+            self.mean_nodes, dev, member_ids=ids, profile=self.sampler.profile,
         )

@@ -132,14 +132,14 @@ class TiledPosterior:
         num = np.zeros((k, self.n_outputs))
         vnum = np.zeros(k)
         den = np.zeros(k)
-        prior = self.hp.sigma_m_s**2
+        prior_all = self.hp.sigma_m_s**2 * self.hp.g(xs[:, 2]) ** 2  # prior variance s^2 g(z)^2
         for tile, post in zip(self.tiles, self.posteriors, strict=True):
             w = tile.weight(xs[:, 0], xs[:, 1])
             rows = np.flatnonzero(w > 0.0)
             if rows.size == 0:
                 continue
             if post is None:
-                m, v = np.zeros((rows.size, self.n_outputs)), np.full(rows.size, prior)
+                m, v = np.zeros((rows.size, self.n_outputs)), prior_all[rows]
             else:
                 m, v = post.mean_var(xs[rows], want_var)
             num[rows] += w[rows, None] * m

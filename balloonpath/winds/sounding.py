@@ -10,7 +10,7 @@ Columns (order free, unknown columns ignored):
 - vertical: ``altitude_m`` (geometric, above mean sea level) or ``pressure_hpa`` (heights then from
   the hypsometric equation with the sounding's temperature, or from USSA 1976 when no temperature is
   given);
-- wind: ``wind_direction_deg`` (FROM, degrees true, [WMO2018]) with ``wind_speed_m_s`` or
+- wind: ``wind_direction_deg`` (FROM, degrees true, [WMO8]) with ``wind_speed_m_s`` or
   ``wind_speed_kt``, or ``u_m_s`` with ``v_m_s``;
 - optional: ``temperature_c``, ``dewpoint_c`` (and ``pressure_hpa`` beside ``altitude_m``).
 
@@ -19,7 +19,7 @@ warning.
 
 References
 ----------
-[WMO2018] WMO-No. 8, Guide to Instruments and Methods of Observation: wind direction is the
+[WMO8] WMO-No. 8, Guide to Instruments and Methods of Observation: wind direction is the
     direction FROM which the wind blows, degrees clockwise from true north.
 [WH2006] J. M. Wallace & P. V. Hobbs, Atmospheric Science: An Introductory Survey, 2nd ed., Academic
     Press 2006, §3.2: hypsometric equation Z2 - Z1 = (Rd / g0) Tv_mean ln(p1 / p2) (eq. 3.29) and
