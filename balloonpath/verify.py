@@ -464,7 +464,9 @@ def calibrate(plan: Any, params: Any, flown: FlownTrack, atmosphere: Atmosphere,
         from balloonpath.flight.lift import drag_coefficient_from_track
 
         fit = drag_coefficient_from_track(up_z, up_t, float(params.free_lift_kg[0]),
-                                          float(params.gas_amount_mol[0]), atmosphere=atmosphere)
+                                          float(params.gas_amount_mol[0]), atmosphere=atmosphere,
+                                          drag_model=params.drag_model,
+                                          reference_reynolds=float(params.drag_reference_reynolds[0]))
         k = fit.ascent_rate_m_s * np.sqrt(fit.local_drag_coefficient)
         s = 1.0 / math.sqrt(fit.drag_coefficient)
         n = fit.ascent_rate_m_s.size

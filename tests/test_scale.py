@@ -164,7 +164,7 @@ def test_a_worker_killed_mid_run_loses_no_member(coastal, cluster):
     assert killed.is_set()
     assert out.n_members == 128
     _same(ref, out)
-    client.wait_for_workers(2, timeout=60)
+    client.wait_for_workers(2, timeout=240)  # a restarted worker re-imports numpy, dask, balloonpath
 
 
 def test_repeated_worker_loss_fails_with_one_line(cluster):
@@ -178,7 +178,7 @@ def test_repeated_worker_loss_fails_with_one_line(cluster):
                 engine.result(fut)
     finally:
         c.scheduler.allowed_failures = saved
-    client.wait_for_workers(2, timeout=60)
+    client.wait_for_workers(2, timeout=240)  # a restarted worker re-imports numpy, dask, balloonpath
 
 
 def test_unreachable_scheduler_is_a_one_line_error():

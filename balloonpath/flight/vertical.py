@@ -343,7 +343,7 @@ def vertical_speed_m_s(
     -----
     One atmosphere evaluation for the moving elements: cost O(N). The ``"constant"`` law needs no
     root finding; ``"reynolds"`` solves v^2 Cd(Re(v)) = 2 L g0 / (rho A) for all ascending elements
-    at once with safeguarded Newton steps in ln v (tolerance 1e-12, cap 30 iterations, 3-5
+    at once with safeguarded Newton steps in ln v (step tolerance 1e-9, cap 30 iterations, about 6
     typical; :func:`balloonpath.flight.drag.solve_ascent_speed`).
     """
     ph = np.asarray(phase)
