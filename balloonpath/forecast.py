@@ -10,6 +10,9 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import os
+import shutil
+import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -409,32 +412,41 @@ class WrittenForecast:
 
 
 def write_outputs(result: ForecastResult, plan: Plan, out_dir: str | Path, report: bool = True) -> WrittenForecast:
-    """Compute the zones and write every output file of a forecast (each atomically)."""
+    """Compute the zones and write every output file of a forecast, all or nothing.
+
+    The files are written into a hidden staging folder inside ``out_dir`` and moved into place (each move
+    atomic) only when all of them have been written, so a failure leaves no partial set behind.
+    """
     from balloonpath import plots
+    from balloonpath import report as report_mod
     from balloonpath import zones as zones_mod
     from balloonpath.export import geojson, kml, tables
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    log = WarningLog(list(result.warnings))
-    with recording_warnings(log):
-        zones = zones_mod.compute_zones(result, avoid_path=plan.zones.avoid, water=plan.zones.water)
-        files = [
-            tables.write_track_csv(result.nominal, out / "track.csv"),
-            tables.write_members_csv(result, out / "members.csv"),
-            geojson.write_geojson(geojson.forecast_geojson(result, zones), out / "zones.geojson"),
-            kml.write_forecast_kml(result, zones, out / "flight.kml"),
-            plots.plot_map(result, zones, out / "map.png"),
-            plots.plot_profile(result, out / "profile.png"),
-        ]
-    result = dataclasses.replace(result, warnings=tuple(log.messages))
-    summary = summary_dict(result, zones)
-    files.append(atomic_write_text(out / "summary.json", json.dumps(summary, indent=2) + "\n"))
-    if report:
-        try:
-            from balloonpath import report as report_mod
-        except ImportError:
-            report_mod = None
-        if report_mod is not None:
-            files.append(report_mod.write_report(result, zones, summary, plan, out / "report.html"))
-    return WrittenForecast(out, tuple(Path(f) for f in files if f is not None), summary)
+    stage = Path(tempfile.mkdtemp(prefix=".forecast-", suffix=".part", dir=out))
+    try:
+        log = WarningLog(list(result.warnings))
+        with recording_warnings(log):
+            zones = zones_mod.compute_zones(result, avoid_path=plan.zones.avoid, water=plan.zones.water)
+            files = [
+                tables.write_track_csv(result.nominal, stage / "track.csv"),
+                tables.write_members_csv(result, stage / "members.csv"),
+                geojson.write_geojson(geojson.forecast_geojson(result, zones), stage / "zones.geojson"),
+                kml.write_forecast_kml(result, zones, stage / "flight.kml"),
+                plots.plot_map(result, zones, stage / "map.png"),
+                plots.plot_profile(result, stage / "profile.png"),
+            ]
+        result = dataclasses.replace(result, warnings=tuple(log.messages))
+        summary = summary_dict(result, zones)
+        files.append(atomic_write_text(stage / "summary.json", json.dumps(summary, indent=2) + "\n"))
+        if report:
+            if (out / "checklist.json").exists():  # the report shows a checklist run into this folder
+                shutil.copy2(out / "checklist.json", stage / "checklist.json")
+            files.append(report_mod.write_report(result, zones, summary, plan, stage / "report.html"))
+        names = [Path(f).name for f in files if f is not None]
+        for name in names:
+            os.replace(stage / name, out / name)
+    finally:
+        shutil.rmtree(stage, ignore_errors=True)
+    return WrittenForecast(out, tuple(out / name for name in names), summary)

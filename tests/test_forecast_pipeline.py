@@ -155,3 +155,18 @@ def test_plan_with_observations_and_with_a_saved_field(tmp_path, coastal_plan):
     # the saved fit and the on-the-fly fit agree on the nominal landing (same data, same model)
     d, _ = inverse(fused.landing.lat[0], fused.landing.lon[0], saved.landing.lat[0], saved.landing.lon[0])
     assert float(d) < 2_000.0
+
+
+def test_a_failure_while_writing_leaves_no_partial_outputs(coastal_plan, coastal_winds, tmp_path, monkeypatch):
+    from balloonpath import plots
+
+    result = run_forecast(coastal_plan, members=8, seed=1, winds=coastal_winds)
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("disk full")
+
+    monkeypatch.setattr(plots, "plot_profile", broken)
+    out = tmp_path / "fc"
+    with pytest.raises(RuntimeError, match="disk full"):
+        write_outputs(result, coastal_plan, out, report=False)
+    assert list(out.iterdir()) == []  # neither the files written before the failure nor the staging folder
