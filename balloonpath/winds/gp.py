@@ -491,7 +491,8 @@ class BackgroundErrorField(GPWindField):
     ----------
     background : WindField
     sigma_m_s : float
-        Per-component error sd at the peak of the altitude profile (the jet level), e.g.
+        Per-component error sd, column rms over 0-30 km of the altitude profile (the sd at altitude z is
+        ``sigma_m_s * altitude_profile(z)``, about 1.45 sigma_m_s at the jet level), e.g.
         ``background_error_sigma(lead_time_h)``.
     profile : {"nwp", "uniform"}
         Altitude profile g(z) of the error amplitude (``gp_kernels.altitude_profile``); default "nwp", the
@@ -643,7 +644,7 @@ def fit_wind_field(
     if n_raw == 0:
         warnings.warn(
             "wind GP: no usable observations; the field is the background with its error model "
-            f"(sd {hp0.sigma_m_s:.2f} m/s per component)",
+            f"(sd {hp0.sigma_m_s:.2f} m/s per component, column rms of its altitude profile)",
             FitWarning,
             stacklevel=2,
         )

@@ -49,21 +49,42 @@ BOUNDS = {
 JITTERS = (0.0, 1e-8, 1e-6, 1e-4, 1e-2)
 
 
-#: Altitude profile of background-error amplitude, normalised to 1 at its peak (jet level). From memory,
+#: Altitude profile of background-error amplitude (shape h(z), 1 at its peak, the jet level). From memory,
 #: common NWP verification practice ([NWPverif]): short-range vector-wind RMSE against radiosondes in the
 #: mid-latitudes, relative to its jet-level (~250 hPa) value, is about 0.55-0.6 near the ground and at
 #: 850 hPa (~1.5 km), 0.75 at 500 hPa (~5.5 km), 1 at 250 hPa (~10.5 km), 0.65 at 100 hPa (~16 km) and
 #: 0.45-0.5 at 50-10 hPa (20-30 km). Represented by two half-Gaussians about the jet level z_j (C1 at z_j):
 #: g(z) = f + (1 - f) exp(-(z - z_j)^2 / (2 w^2)) with (f, w) = (0.5, 5 km) below z_j and (0.45, 4 km)
-#: above.
+#: above. The kernel uses g = h / rms(h), rms over the balloon column 0-30 km (uniform in altitude), so
+#: the signal sd s and the background error sd keep their meaning of a column-average sd (the total error
+#: variance of the column is that of the stationary model with the same s); the jet-level sd is s / rms(h).
 NWP_PROFILE = {"jet_km": 10.5, "floor_below": 0.5, "width_below_km": 5.0, "floor_above": 0.45,
-               "width_above_km": 4.0}
+               "width_above_km": 4.0, "column_km": (0.0, 30.0)}
 #: Profiles by name: "nwp" (default, :data:`NWP_PROFILE`) and "uniform" (g = 1: the stationary kernel).
 PROFILES = ("nwp", "uniform")
 
 
+def _profile_shape(z: np.ndarray) -> np.ndarray:
+    """h(z) of :data:`NWP_PROFILE` (1 at the jet level)."""
+    p = NWP_PROFILE
+    below = z < p["jet_km"]
+    floor = np.where(below, p["floor_below"], p["floor_above"])
+    width = np.where(below, p["width_below_km"], p["width_above_km"])
+    return floor + (1.0 - floor) * np.exp(-0.5 * ((z - p["jet_km"]) / width) ** 2)
+
+
+def _column_rms() -> float:
+    z = np.linspace(*NWP_PROFILE["column_km"], 30_001)
+    h2 = _profile_shape(z) ** 2
+    return float(np.sqrt(np.sum(0.5 * (h2[1:] + h2[:-1]) * np.diff(z)) / (z[-1] - z[0])))
+
+
+#: rms of h(z) over the column (trapezoid rule, 1 m steps): g = h / PROFILE_COLUMN_RMS.
+PROFILE_COLUMN_RMS = _column_rms()
+
+
 def altitude_profile(alt_km: np.ndarray | float, profile: str = "nwp") -> np.ndarray:
-    """Relative amplitude g(z) of the background wind error at altitude z (1 at the jet level).
+    """Relative amplitude g(z) of the background wind error at altitude z (column rms 1 over 0-30 km).
 
     Parameters
     ----------
@@ -75,24 +96,21 @@ def altitude_profile(alt_km: np.ndarray | float, profile: str = "nwp") -> np.nda
     Returns
     -------
     ndarray
-        g(z), same shape as ``alt_km``, in (0, 1].
+        g(z), same shape as ``alt_km``, positive; its peak (jet level) is 1 / PROFILE_COLUMN_RMS.
 
     Notes
     -----
-    g(z) = f + (1 - f) exp(-(z - z_j)^2 / (2 w^2)), (f, w) = (0.5, 5 km) for z < z_j and (0.45, 4 km) above,
-    z_j = 10.5 km (:data:`NWP_PROFILE`; shape from common NWP verification practice, figures from memory,
-    [NWPverif]). Smooth (C1 at z_j, C-infinity elsewhere), bounded away from 0.
+    g(z) = h(z) / rms_{0-30 km}(h), h(z) = f + (1 - f) exp(-(z - z_j)^2 / (2 w^2)), (f, w) = (0.5, 5 km)
+    for z < z_j and (0.45, 4 km) above, z_j = 10.5 km (:data:`NWP_PROFILE`; shape from common NWP
+    verification practice, figures from memory, [NWPverif]). Smooth (C1 at z_j, C-infinity elsewhere),
+    bounded away from 0.
     """
     z = np.asarray(alt_km, dtype=float)
     if profile == "uniform":
         return np.ones_like(z)
     if profile != "nwp":
         raise ValueError(f"unknown altitude profile {profile!r}; choose one of {PROFILES}")
-    p = NWP_PROFILE
-    below = z < p["jet_km"]
-    floor = np.where(below, p["floor_below"], p["floor_above"])
-    width = np.where(below, p["width_below_km"], p["width_above_km"])
-    return floor + (1.0 - floor) * np.exp(-0.5 * ((z - p["jet_km"]) / width) ** 2)
+    return _profile_shape(z) / PROFILE_COLUMN_RMS
 
 
 @dataclass(frozen=True)
@@ -102,8 +120,9 @@ class GPHyperparameters:
     Defaults (used when too few observations to learn them) are from memory, order-of-magnitude values for
     the correlation of forecast wind errors in the free troposphere: 150 km horizontally, 1.5 km
     vertically, 6 h in time; the signal sd is set from the background error model. ``sigma_m_s`` is the
-    sd at the peak of the altitude profile (the jet level); at altitude z the prior sd is
-    ``sigma_m_s * altitude_profile(z, profile)``. ``profile`` is a fixed model choice, not learned.
+    column-rms sd (0-30 km) of the altitude profile; at altitude z the prior sd is
+    ``sigma_m_s * altitude_profile(z, profile)`` (about 1.45 sigma_m_s at the jet level). ``profile`` is
+    a fixed model choice, not learned.
     """
 
     length_h_km: float = 150.0
