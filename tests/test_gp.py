@@ -163,7 +163,8 @@ def test_variance_shrinks_near_observations_and_returns_far_away():
     assert float(u_far) == pytest.approx(5.0, abs=1e-6) and float(v_far) == pytest.approx(0.0, abs=1e-6)
 
 
-def test_samples_match_posterior_covariance():
+@pytest.mark.parametrize("platforms", [False, True])
+def test_samples_match_posterior_covariance(platforms):
     # Empirical covariance of 4000 realisations at 5 points vs the exact posterior covariance.
     # Tolerance: 4 sampling sd of each covariance entry, sqrt((C_ii C_jj + C_ij^2) / N), plus the grid
     # approximation: 8 % of the local prior covariance scale s^2 g(z_i) g(z_j) (the kernel has the altitude
@@ -174,8 +175,12 @@ def test_samples_match_posterior_covariance():
     rng = np.random.default_rng(6)
     hp = GPHyperparameters(100.0, 1.0, 4.0, 3.0)
     obs = _draw_truth_obs(hp, 60, rng)
+    if platforms:  # 4 aircraft sharing an error each: eps ~ N(0, diag + tau^2 Z Z^T) in the samples too
+        src = np.array([f"aircraft-report:A{i % 4}" for i in range(len(obs))], dtype=object)
+        obs = WindObservations(obs.time_s, obs.lat, obs.lon, obs.alt_m, obs.u, obs.v, obs.sigma, src)
     field = fit_wind_field(obs, UniformField(0.0, 0.0), hyperparameters=hp, optimize=False,
-                           center=(LAT0, LON0, T0))
+                           center=(LAT0, LON0, T0), shared_platform_error=platforms)
+    assert field.posterior.noise.correlated == platforms
     field = field.with_corridor(LAT0 - 1.2, LAT0 + 1.2, LON0 - 1.5, LON0 + 1.5, 14_000.0,
                                 T0 - 3.5 * 3600, T0 + 3.5 * 3600, alt_min_m=4_000.0)
     n = 4000
@@ -336,3 +341,42 @@ def test_fused_field_halves_background_error_on_invented_scenario():
     rmse_bg = np.sqrt(np.mean((ub - ut) ** 2 + (vb - vt) ** 2))
     rmse_fused = np.sqrt(np.mean((uf - ut) ** 2 + (vf - vt) ** 2))
     assert rmse_fused <= 0.5 * rmse_bg
+
+
+def test_shared_aircraft_error_reduces_information():
+    # 10 observations from ONE aircraft (noise Sigma = diag(s^2) + tau^2 1 1^T) vs from 10 aircraft
+    # (Sigma diagonal with s^2 + tau^2): same total variance per observation, but the shared error does not
+    # average out, so the posterior sd near them is larger. Checked against an independent numpy solve of
+    # [RW2006] eqs. 2.22-2.24 with a general noise covariance: mean = K*^T (K + Sigma)^-1 y,
+    # cov = K** - K*^T (K + Sigma)^-1 K*.
+    from balloonpath.winds.gp import Posterior, aircraft_shared_error_sigma
+    from balloonpath.winds.gp_kernels import NoiseCovariance
+
+    tau = aircraft_shared_error_sigma(0.5, 230.0)
+    assert tau == pytest.approx(2 * 230.0 * np.sin(np.radians(0.25)) / np.sqrt(2), rel=1e-12)  # 1.42 m/s
+    rng = np.random.default_rng(21)
+    hp = GPHyperparameters(100.0, 1.0, 4.0, 3.0, profile="uniform")
+    x = np.column_stack([np.linspace(-40, 40, 10), rng.uniform(-10, 10, 10), np.full(10, 10.0),
+                         np.zeros(10)])
+    y = rng.normal(size=(10, 2))
+    var = np.full(10, 1.0)
+    xs = np.array([[0.0, 0.0, 10.0, 0.0], [60.0, 30.0, 9.5, 1.0]])
+    sd = {}
+    for name, group in (("one", np.zeros(10, int)), ("ten", np.arange(10))):
+        post = Posterior(x, y, var, hp, noise_group=group, group_var=tau**2)
+        mean, v = post.mean_var(xs)
+        same = group[:, None] == group[None, :]
+        sigma = np.diag(var) + tau**2 * same  # textbook general noise covariance
+        k = np.array([[hp.sigma_m_s**2 * np.exp(-0.5 * np.sum(((a - b) / hp.lengths()) ** 2))
+                       for b in x] for a in xs])  # (2, 10), SE kernel written out
+        kxx = np.array([[hp.sigma_m_s**2 * np.exp(-0.5 * np.sum(((a - b) / hp.lengths()) ** 2))
+                         for b in x] for a in x])
+        ref_mean = k @ np.linalg.solve(kxx + sigma, y)
+        ref_var = hp.sigma_m_s**2 - np.sum(k * np.linalg.solve(kxx + sigma, k.T).T, axis=1)
+        np.testing.assert_allclose(mean, ref_mean, rtol=1e-8, atol=1e-10)
+        np.testing.assert_allclose(v, ref_var, rtol=1e-8, atol=1e-10)
+        sd[name] = np.sqrt(v)
+        # the Matheron noise draws have the covariance Sigma (blockwise Cholesky)
+        eps = NoiseCovariance(var, group, tau**2).draw(rng.standard_normal((10, 20_000)))
+        assert np.all(np.abs(np.cov(eps) - sigma) < 4 * np.sqrt((1 + tau**2) ** 2 * 2 / 20_000))
+    assert np.all(sd["one"] > sd["ten"] + 0.05)

@@ -262,6 +262,13 @@ class QCConfig:
     heading_bias_min_rows: int = 5
     heading_bias_min_deg: float = 1.0
     heading_bias_sigmas: float = 3.0
+    heading_bias_cell_s: float = 300.0
+    heading_bias_cell_m: float = 300.0
+    heading_bias_radius_km: float = 100.0
+    heading_bias_radius_m: float = 400.0
+    heading_bias_radius_s: float = 3600.0
+    heading_bias_min_cells: int = 3
+    reference_error_m_s: float = 3.0
     superob_time_s: float = 120.0
     superob_alt_m: float = 300.0
     superob_correlated_fraction: float = 0.5
@@ -863,6 +870,89 @@ def screen_states(states: AircraftStates, config: QCConfig | None = None,
     return status
 
 
+class _BiasCells:
+    """Running sums per (aircraft, time cell, altitude cell) for the heading-bias estimate (memory grows with
+    the number of cells only; sums do not depend on the order of the chunks up to rounding)."""
+
+    FIELDS = ("n", "ex", "ey", "ez", "t", "z", "du", "dv", "eu", "ev", "derived")
+
+    def __init__(self, cfg: QCConfig) -> None:
+        self.cfg = cfg
+        self.index: dict[tuple[int, int, int], int] = {}
+        self.keys: list[tuple[int, int, int]] = []
+        self.sums = np.zeros((len(self.FIELDS), 0))
+
+    def add(self, c: _FitRows) -> None:
+        if c.z.size == 0:
+            return
+        keys = np.rec.fromarrays([c.ac.astype(np.int64), np.floor(c.t / self.cfg.heading_bias_cell_s).astype(np.int64),
+                                  np.floor(c.z / self.cfg.heading_bias_cell_m).astype(np.int64)])
+        unique, group = np.unique(keys, return_inverse=True)
+        group = np.asarray(group).ravel()
+        target = np.empty(unique.size, dtype=np.intp)
+        for j, key in enumerate(unique.tolist()):
+            i = self.index.get(key)
+            if i is None:
+                i = self.index[key] = len(self.keys)
+                self.keys.append(key)
+            target[j] = i
+        if len(self.keys) > self.sums.shape[1]:
+            grown = np.zeros((len(self.FIELDS), max(2 * self.sums.shape[1], len(self.keys), 64)))
+            grown[:, :self.sums.shape[1]] = self.sums
+            self.sums = grown
+        lat, lon = np.radians(c.lat), np.radians(c.lon)
+        columns = (np.ones(c.z.size), np.cos(lat) * np.cos(lon), np.cos(lat) * np.sin(lon), np.sin(lat), c.t, c.z,
+                   c.du, c.dv, c.eu, c.ev, c.derived.astype(float))
+        for row, x in enumerate(columns):
+            self.sums[row, target] += np.bincount(group, weights=x, minlength=unique.size)
+
+    def estimate(self, n_aircraft: int) -> dict[int, tuple[float, float, int]]:
+        """``{aircraft: (bias_deg, standard_error_deg, n_cells)}`` against the other aircraft (see _qc_fit)."""
+        from scipy.spatial import cKDTree
+
+        m = len(self.keys)
+        if m == 0:
+            return {}
+        cfg = self.cfg
+        s = self.sums[:, :m]
+        n = s[0]
+        mean = s[1:] / n
+        ac = np.array([k[0] for k in self.keys], dtype=np.intp)
+        order = np.lexsort((np.array([k[2] for k in self.keys]), np.array([k[1] for k in self.keys]), ac))
+        ac, mean, n = ac[order], mean[:, order], n[order]
+        unit = mean[0:3] / np.linalg.norm(mean[0:3], axis=0)
+        coords = np.column_stack([unit.T * 6_371.0 / cfg.heading_bias_radius_km,
+                                  mean[4] / cfg.heading_bias_radius_m, mean[3] / cfg.heading_bias_radius_s])
+        tree = cKDTree(coords)
+        hood = tree.query_ball_point(coords, r=1.0, p=np.inf)
+        d = np.vstack([mean[5], mean[6]])  # residual against the background (2, m)
+        e = np.vstack([mean[7], mean[8]])  # effect of a unit bias (radians)
+        delta = np.zeros(n_aircraft)
+        ref = np.full((2, m), np.nan)
+        for _ in range(5):
+            corrected = d - e * delta[ac]
+            for i, js in enumerate(hood):
+                js = np.asarray(js, dtype=np.intp)
+                js = js[ac[js] != ac[i]]
+                if js.size:
+                    ref[:, i] = corrected[:, js] @ n[js] / n[js].sum()
+            have = np.isfinite(ref[0]) & (mean[9] > 0.5)
+            diff = np.where(have, d - ref, 0.0)
+            num = np.bincount(ac, weights=np.where(have, np.sum(e * diff, axis=0), 0.0), minlength=n_aircraft)
+            den = np.bincount(ac, weights=np.where(have, np.sum(e * e, axis=0), 0.0), minlength=n_aircraft)
+            delta = np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0)
+        have = np.isfinite(ref[0]) & (mean[9] > 0.5)
+        resid = np.where(have, d - ref - e * delta[ac], 0.0)
+        cells = np.bincount(ac, weights=have.astype(float), minlength=n_aircraft)
+        sq = np.bincount(ac, weights=np.sum(resid * resid, axis=0), minlength=n_aircraft)
+        out: dict[int, tuple[float, float, int]] = {}
+        for j in np.nonzero(cells >= max(cfg.heading_bias_min_cells, 1))[0]:
+            s2 = sq[j] / max(2.0 * cells[j] - 1.0, 1.0)
+            se = math.sqrt(s2 / den[j]) if den[j] > 0 else math.inf
+            out[int(j)] = (math.degrees(delta[j]), math.degrees(se), int(cells[j]))
+        return out
+
+
 @dataclass(frozen=True)
 class _QCFit:
     bias_deg: np.ndarray  # per aircraft index; 0 where not corrected
@@ -909,14 +999,41 @@ def _qc_fit(chunks: RowChunks, n_aircraft: int, derived_rows: np.ndarray, cfg: Q
 
     ``chunks()`` yields ``(rows, aircraft index, background u, background v)`` for the rows that passed
     :func:`screen_states`; it is read once per pass (about 8 per robust iteration).
+
+    Heading bias against the other aircraft: rows are averaged into cells (aircraft, 300 s, 300 m); each
+    cell's residual d_c (against the background, or zero) is compared with the count-weighted mean residual
+    of the OTHER aircraft's cells within 100 km, 400 m and 1 h (their current bias estimates removed), so
+    an error of the background, shared by neighbours, cancels. Per aircraft, delta = sum e_c . (d_c - ref_c)
+    / sum |e_c|^2 over its cells with neighbours (e_c = -TAS (cos psi, -sin psi), the change of the derived
+    wind per radian of heading bias, [PHAK] wind triangle to first order); 5 Jacobi iterations. Standard
+    error from the scatter of the cell residuals (cells, not rows, are the independent pieces). Aircraft
+    with fewer than ``heading_bias_min_cells`` such cells fall back to the joint profile fit
+    (:func:`_fit_profile`) with the reference's own error ``reference_error_m_s`` / TAS added to the
+    standard error. Corrected when |delta| > max(heading_bias_min_deg, heading_bias_sigmas x se).
     """
     bias = np.zeros(n_aircraft)
     if cfg.heading_bias and any(np.any(s.kind == KIND_DERIVED) for s, *_ in chunks()):
-        _, _, _, found = _fit_profile(lambda: (_FitRows.build(s, a, bu, bv, True) for s, a, bu, bv in chunks()),
-                                      n_aircraft, cfg.reference_knot_m, True)
-        for j, (b, se, count) in found.items():
-            if count >= cfg.heading_bias_min_rows and \
-                    abs(b) > max(cfg.heading_bias_min_deg, cfg.heading_bias_sigmas * se) and derived_rows[j]:
+        cells = _BiasCells(cfg)
+        tas_sum, tas_n = np.zeros(n_aircraft), np.zeros(n_aircraft)
+        for s, a, bu, bv in chunks():
+            cells.add(_FitRows.build(s, a, bu, bv, True))
+            d = s.kind == KIND_DERIVED
+            tas_sum += np.bincount(a[d], weights=s.true_airspeed_m_s[d], minlength=n_aircraft)
+            tas_n += np.bincount(a[d], minlength=n_aircraft)
+        found = cells.estimate(n_aircraft)
+        if any(j not in found and tas_n[j] > 0 for j in range(n_aircraft)):
+            # Aircraft with no other aircraft near: the joint profile fit against the reference, whose own
+            # error (reference_error_m_s, correlated along the track) adds to the standard error.
+            _, _, _, alone = _fit_profile(
+                lambda: (_FitRows.build(s, a, bu, bv, True) for s, a, bu, bv in chunks()),
+                n_aircraft, cfg.reference_knot_m, True)
+            for j, (b, se, count) in alone.items():
+                if j not in found and tas_n[j] > 0:
+                    se_ref = math.degrees(cfg.reference_error_m_s / (tas_sum[j] / tas_n[j]))
+                    found[j] = (b, math.hypot(se, se_ref), count)
+        for j, (b, se, _) in found.items():
+            if derived_rows[j] >= cfg.heading_bias_min_rows and \
+                    abs(b) > max(cfg.heading_bias_min_deg, cfg.heading_bias_sigmas * se):
                 bias[j] = b
 
     def corrected() -> Iterator[tuple[AircraftStates, np.ndarray, np.ndarray, np.ndarray]]:
@@ -1028,7 +1145,8 @@ class _SuperobSums:
         lon = np.degrees(np.arctan2(sin_lon, cos_lon))
         rho = self.cfg.superob_correlated_fraction
         sigma = sigma_row * np.sqrt(rho + (1.0 - rho) / count)
-        source = np.array([k[0] for k in self.keys], dtype=object)
+        # "<kind>:<aircraft>": the GP treats observations of one aircraft as sharing an error (gp.platform_groups).
+        source = np.array([f"{k[0]}:{k[1]}" for k in self.keys], dtype=object)
         aircraft = np.array([k[1] for k in self.keys])
         order = np.lexsort((alt, aircraft, time_s))
         return WindObservations(
@@ -1151,8 +1269,9 @@ def derive_observations(
         Report tables (CSV with a ``time,aircraft,...`` header) or raw messages (CSV ``time,message``); the
         kind is detected from the first line.
     background : WindField, optional
-        Reference for the gross-outlier test and the heading-bias estimate (default: a smooth profile fitted
-        to the aircraft winds).
+        Reference for the gross-outlier test (default: a smooth profile fitted to the aircraft winds). Heading
+        biases are estimated against the other aircraft nearby (residuals against this reference, whose
+        error the neighbours share; see :func:`_qc_fit`).
     atmosphere : Atmosphere, optional
         The day's air with actual heights for converting pressure altitude (default: standard atmosphere).
     config : QCConfig, optional

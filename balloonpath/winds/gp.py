@@ -36,6 +36,7 @@ from balloonpath.winds.gp_io import background_spec_of, default_background_loade
 from balloonpath.winds.gp_kernels import (
     BOUNDS,
     GPHyperparameters,
+    NoiseCovariance,
     log_marginal_likelihood,
     optimize_hyperparameters,
     robust_cholesky,
@@ -84,6 +85,42 @@ CORRIDOR_ALT_MAX_M = 40_000.0
 CORRIDOR_HALF_TIME_H = 12.0
 
 
+#: Residual heading error of an aircraft after the heading-bias correction (1 sd, degrees; from memory:
+#: biases below the 1 degree correction threshold stay, [deHaan2013] in aircraft.py) and cruise TAS (m/s).
+AIRCRAFT_HEADING_RESIDUAL_DEG = 0.5
+AIRCRAFT_CRUISE_TAS_M_S = 230.0
+
+
+def aircraft_shared_error_sigma(heading_residual_deg: float = AIRCRAFT_HEADING_RESIDUAL_DEG,
+                                true_airspeed_m_s: float = AIRCRAFT_CRUISE_TAS_M_S) -> float:
+    """Per-component sd (m/s) of the wind error shared by all observations of one aircraft.
+
+    Notes
+    -----
+    A heading error d psi rotates the air vector and gives a wind error of magnitude 2 TAS sin(d psi / 2)
+    across the aircraft's track (wind triangle, REFERENCES §6; ``aircraft.wind_from_triangle``). It is the
+    same for every report of the aircraft, so it does not average out. Spread over both components (the
+    track direction is not carried by the observations): tau = 2 TAS sin(d psi / 2) / sqrt(2); with
+    d psi = 0.5 deg and TAS = 230 m/s, tau = 1.42 m/s.
+    """
+    return float(2.0 * true_airspeed_m_s * np.sin(np.radians(heading_residual_deg) / 2.0) / np.sqrt(2.0))
+
+
+def platform_groups(source: np.ndarray) -> np.ndarray:
+    """Platform index of each observation from its source label (``"<kind>:<platform>"``), -1 if none.
+
+    Observations whose label has a ``:`` (aircraft-derived winds are ``aircraft-report:<icao>`` or
+    ``aircraft-modes:<icao>``) share an error with the other observations of the same label.
+    """
+    labels = np.asarray(source).astype(str)
+    has = np.char.find(labels, ":") >= 0
+    group = np.full(labels.size, -1, dtype=np.int64)
+    if np.any(has):
+        _, inverse = np.unique(labels[has], return_inverse=True)
+        group[has] = np.asarray(inverse).ravel()
+    return group
+
+
 def background_error_sigma(lead_time_h: float) -> float:
     """Standard deviation (m/s) of each wind component's background-forecast error at a lead time.
 
@@ -117,15 +154,20 @@ class Posterior:
         noise_var: np.ndarray,
         hp: GPHyperparameters,
         inducing: np.ndarray | None = None,
+        noise_group: np.ndarray | None = None,
+        group_var: float = 0.0,
     ) -> None:
         self.x = np.asarray(x, dtype=float)
         self.y = np.asarray(y, dtype=float)
         self.noise_var = np.asarray(noise_var, dtype=float)
         self.hp = hp
         self.sparse = inducing is not None
+        # Exact GP: Lambda = diag(noise_var) + tau^2 Z Z^T (per-platform shared error). DTC ignores the
+        # shared term (Lambda stays diagonal there; docs/winds-gp.md).
+        self.noise = NoiseCovariance(self.noise_var, noise_group, group_var if not self.sparse else 0.0)
         if not self.sparse:
             ky = se_kernel(self.x, self.x, hp)
-            ky[np.diag_indices_from(ky)] += self.noise_var
+            self.noise.add_to(ky)
             self.chol, self.jitter = robust_cholesky(ky)
             del ky
             self.points = self.x
@@ -189,13 +231,13 @@ class Posterior:
     ) -> np.ndarray:
         """Matheron coefficients c with e(x) = f(x) + k(x, P) c a posterior deviation ([Wilson2020]).
 
-        exact: c = -(K + Lambda)^-1 (f(X) + eps), eps ~ N(0, Lambda).
+        exact: c = -(K + Lambda)^-1 (f(X) + eps), eps ~ N(0, Lambda) (Lambda with its per-platform blocks).
         DTC:   c = A^-T/2 xi - K_ZZ^-1 f(Z), xi ~ N(0, I) (so Cov e = k - Q + k^T A^-1 k).
         ``normals`` (same shape as ``f_at_points``) replaces the draw from ``rng`` (per-member streams).
         """
         z = rng.standard_normal(f_at_points.shape) if normals is None else np.asarray(normals, dtype=float)
         if not self.sparse:
-            eps = z * np.sqrt(self.noise_var)[:, None]
+            eps = self.noise.draw(z)
             return -cho_solve((self.chol, True), f_at_points + eps, check_finite=False)
         xi = z
         return solve_triangular(self.chol_a, xi, lower=True, trans="T", check_finite=False) - cho_solve(
@@ -236,17 +278,18 @@ def _to_local(proj: LocalProjection, t_ref: float, lat, lon, alt_m, time_s) -> n
     return np.column_stack([x / 1e3, y / 1e3, alt_m / 1e3, (time_s - t_ref) / 3600.0])
 
 
-def _merge_cells(x: np.ndarray, r: np.ndarray, var: np.ndarray, cell: np.ndarray):
+def _merge_cells(x: np.ndarray, r: np.ndarray, var: np.ndarray, cell: np.ndarray, group: np.ndarray):
     """Inverse-variance average of rows falling in one cell (superobservations, [Lorenc1981]).
 
     The merged error variance is 1 / sum(1/var_i), floored at (min_i sd_i / 2)^2 because reports from
-    one aircraft have correlated errors (from memory; documented in docs/winds-gp.md).
+    one aircraft have correlated errors (from memory; documented in docs/winds-gp.md). Rows of different
+    platforms (``group``) are never merged, so the per-platform error term stays well defined.
     """
-    keys = np.floor(x / cell).astype(np.int64)
-    _, inverse, counts = np.unique(keys, axis=0, return_inverse=True, return_counts=True)
+    keys = np.column_stack([np.floor(x / cell).astype(np.int64), group])
+    uniq, inverse, counts = np.unique(keys, axis=0, return_inverse=True, return_counts=True)
     inverse = inverse.ravel()
     if counts.size == x.shape[0]:
-        return x, r, var, 0
+        return x, r, var, group, 0
     w = 1.0 / var
     sw = np.bincount(inverse, w)
     xm = np.column_stack([np.bincount(inverse, w * x[:, d]) / sw for d in range(4)])
@@ -254,7 +297,7 @@ def _merge_cells(x: np.ndarray, r: np.ndarray, var: np.ndarray, cell: np.ndarray
     vmin = np.full(sw.size, np.inf)
     np.minimum.at(vmin, inverse, var)
     vm = np.maximum(1.0 / sw, vmin / 4.0)
-    return xm, rm, vm, int(x.shape[0] - sw.size)
+    return xm, rm, vm, uniq[:, -1].copy(), int(x.shape[0] - sw.size)
 
 
 # ----------------------------------------------------------------------------------------------------------
@@ -474,7 +517,9 @@ class GPWindField:
         arrays = {"meta": np.frombuffer(json.dumps(meta, sort_keys=True).encode(), dtype=np.uint8)}
         arrays["obs_points"] = self.obs_points
         if self.posterior is not None:
-            arrays.update(x=self.posterior.x, y=self.posterior.y, noise_var=self.posterior.noise_var)
+            arrays.update(x=self.posterior.x, y=self.posterior.y, noise_var=self.posterior.noise_var,
+                          noise_group=self.posterior.noise.group,
+                          noise_group_var=np.array([self.posterior.noise.group_var]))
             if self.posterior.sparse:
                 arrays["inducing"] = self.posterior.points
         buf = io.BytesIO()
@@ -601,6 +646,7 @@ def fit_wind_field(
     max_exact: int = MAX_EXACT,
     n_inducing: int = N_INDUCING,
     background_spec: dict | None = None,
+    shared_platform_error: bool = False,
 ) -> GPWindField:
     """Fuse wind observations over a background: GP regression on the residuals (u, v).
 
@@ -628,6 +674,11 @@ def fit_wind_field(
         Exact GP up to ``max_exact`` (super)observations; DTC with ``n_inducing`` points beyond.
     background_spec : dict, optional
         How to reload the background (stored by :meth:`GPWindField.save`); default from the background.
+    shared_platform_error : bool
+        Add to the noise covariance the error shared by all observations of one platform (source labels
+        ``"<kind>:<platform>"``, :func:`platform_groups`), tau = :func:`aircraft_shared_error_sigma`
+        (exact GP only; the DTC approximation keeps a diagonal noise). Off by default: in the skill benchmark
+        it widened the fused zones without improving the scores (docs/winds-gp.md, "Shared aircraft error").
 
     Returns
     -------
@@ -668,13 +719,15 @@ def fit_wind_field(
         raise input_error(None, "background", "gives NaN wind at some observation points",
                           "use a background that covers the observations", cls=InputDataError)
     var = np.asarray(obs.sigma, dtype=float) ** 2
-    x, r, var, n_dup = _merge_cells(x, r, var, DUPLICATE_CELL)
+    group = platform_groups(obs.source)
+    tau2 = aircraft_shared_error_sigma() ** 2 if shared_platform_error else 0.0
+    x, r, var, group, n_dup = _merge_cells(x, r, var, DUPLICATE_CELL, group)
     if n_dup:
         warnings.warn(f"wind GP: merged {n_dup} duplicate observations", DataQualityWarning, stacklevel=2)
     n_super = 0
     if x.shape[0] > max_exact:
         n0 = x.shape[0]
-        x, r, var, _ = _merge_cells(x, r, var, SUPEROB_CELL)
+        x, r, var, group, _ = _merge_cells(x, r, var, SUPEROB_CELL, group)
         n_super = n0 - x.shape[0]
     n = x.shape[0]
     info: dict = {
@@ -683,7 +736,7 @@ def fit_wind_field(
     }
     hp = hp0
     if optimize and n >= MIN_OBS_TO_LEARN:
-        hp, info = _learn(x, r, var, hp0, rng, info)
+        hp, info = _learn(x, r, NoiseCovariance(var, group, tau2), hp0, rng, info)
     elif optimize:
         warnings.warn(
             f"wind GP: only {n} observations (< {MIN_OBS_TO_LEARN}); hyperparameters not learned, using "
@@ -697,10 +750,13 @@ def fit_wind_field(
         inducing = x[pick]
         info["mode"] = "dtc"
         info["inducing_points"] = int(pick.size)
-    posterior = Posterior(x, r, var, hp, inducing)
+    posterior = Posterior(x, r, var, hp, inducing, group, tau2)
+    info["platforms"] = int(np.unique(group[group >= 0]).size)
+    info["platform_error_sd_m_s"] = float(np.sqrt(tau2)) if not posterior.sparse else 0.0
     if not posterior.sparse:
+        noise = posterior.noise.dense() if posterior.noise.correlated else posterior.noise.diagonal()
         info["log_marginal_likelihood"] = float(
-            log_marginal_likelihood(hp.to_log(), x, r, var, np.zeros(4, bool), hp.profile)[0]
+            log_marginal_likelihood(hp.to_log(), x, r, noise, np.zeros(4, bool), hp.profile)[0]
         ) if n <= 2000 else None
     info["hyperparameters"] = hp.as_dict()
     obs_points = np.column_stack([obs.lat, obs.lon, obs.alt_m, obs.time_s])
@@ -712,7 +768,7 @@ def _fmt_hp(hp: GPHyperparameters) -> str:
             f"sigma {hp.sigma_m_s:.2f} m/s")
 
 
-def _learn(x, r, var, hp0, rng, info):
+def _learn(x, r, noise: NoiseCovariance, hp0, rng, info):
     """Hyperparameter search on a seeded subset; dimensions the data cannot inform stay at their start."""
     span = x.max(axis=0) - x.min(axis=0)
     span_h = float(np.hypot(span[0], span[1]))
@@ -732,7 +788,9 @@ def _learn(x, r, var, hp0, rng, info):
     sub = np.arange(x.shape[0])
     if sub.size > MAX_OPTIMIZE_POINTS:
         sub = np.sort(rng.choice(sub.size, size=MAX_OPTIMIZE_POINTS, replace=False))
-    res = optimize_hyperparameters(x[sub], r[sub], var[sub], hp0, free, rng)
+    part = noise.subset(sub)
+    res = optimize_hyperparameters(x[sub], r[sub], part.dense() if part.correlated else part.diagonal(), hp0,
+                                   free, rng)
     if res.at_bounds:
         warnings.warn(
             "wind GP: learned " + ", ".join(res.at_bounds) + " at the edge of its allowed range "
@@ -785,6 +843,8 @@ def load_wind_field(
     corridor = Corridor(**meta["corridor"])
     posterior = None
     if "x" in arrays:
-        posterior = Posterior(arrays["x"], arrays["y"], arrays["noise_var"], hp, arrays.get("inducing"))
+        group_var = float(arrays["noise_group_var"][0]) if "noise_group_var" in arrays else 0.0
+        posterior = Posterior(arrays["x"], arrays["y"], arrays["noise_var"], hp, arrays.get("inducing"),
+                              arrays.get("noise_group"), group_var)
     field = GPWindField(background, hp, corridor, posterior, meta["info"], meta["background"], arrays["obs_points"])
     return field

@@ -246,8 +246,9 @@ def log_marginal_likelihood(
         Inputs.
     y : ndarray, shape (n, k)
         Residuals, one column per output (k = 2: u, v); outputs are independent and share the kernel.
-    noise_var : ndarray, shape (n,)
-        Observation error variance per point (heteroscedastic, fixed).
+    noise_var : ndarray, shape (n,) or (n, n)
+        Observation error variance per point (heteroscedastic, fixed), or the full error covariance
+        (e.g. :meth:`NoiseCovariance.dense`, correlated errors of one platform).
     free : ndarray of bool, shape (4,), optional
         Which gradient entries to compute (others are returned as 0).
     profile : str
@@ -273,7 +274,7 @@ def log_marginal_likelihood(
     hp = GPHyperparameters.from_log(theta, profile)
     n, k_out = y.shape
     kf = se_kernel(x, x, hp)
-    ky = kf + np.diag(noise_var)
+    ky = kf + (np.diag(noise_var) if np.ndim(noise_var) == 1 else noise_var)
     factor, _ = robust_cholesky(ky, "kernel matrix during the hyperparameter search")
     alpha = cho_solve((factor, True), y, check_finite=False)
     lml = float(
@@ -393,3 +394,76 @@ def optimize_hyperparameters(
         GPHyperparameters.from_log(theta, initial.profile), -float(best.fun), len(x), len(starts),
         tuple(NAMES[i] for i in idx), at,
     )
+
+
+# ----------------------------------------------------------------------------------------------------------
+# Observation-error covariance with a per-platform random effect
+
+
+class NoiseCovariance:
+    """Observation-error covariance Sigma = diag(var) + tau^2 Z Z^T (Z: platform indicator).
+
+    Parameters
+    ----------
+    var : ndarray, shape (n,)
+        Independent error variance of each observation (m^2/s^2).
+    group : ndarray of int, shape (n,), optional
+        Platform (e.g. aircraft) of each observation; -1 = its own platform (no shared error).
+    group_var : float
+        tau^2, the variance of the error shared by all observations of one platform (a random effect).
+
+    Notes
+    -----
+    Observations of one platform share an error e_a ~ N(0, tau^2) per component (for aircraft the
+    residual heading error, docs/winds-gp.md), so Cov(eps_i, eps_j) = tau^2 when i and j belong to the same
+    platform. Sigma is block diagonal after sorting by platform; draws use a Cholesky factor per block.
+    """
+
+    def __init__(self, var: np.ndarray, group: np.ndarray | None = None, group_var: float = 0.0) -> None:
+        self.var = np.asarray(var, dtype=float)
+        n = self.var.size
+        self.group = np.full(n, -1, dtype=np.int64) if group is None else np.asarray(group, dtype=np.int64)
+        self.group_var = float(group_var)
+        self.blocks: list[np.ndarray] = []
+        if self.group_var > 0.0:
+            ids = np.unique(self.group[self.group >= 0])
+            self.blocks = [np.nonzero(self.group == g)[0] for g in ids]
+            self.blocks = [b for b in self.blocks if b.size > 1]
+
+    @property
+    def correlated(self) -> bool:
+        """True when some observations share an error."""
+        return bool(self.blocks)
+
+    def diagonal(self) -> np.ndarray:
+        """Total error variance of each observation (var + tau^2 for platform members)."""
+        extra = np.where(self.group >= 0, self.group_var, 0.0)
+        return self.var + extra
+
+    def add_to(self, matrix: np.ndarray) -> np.ndarray:
+        """matrix += Sigma (in place; returns it)."""
+        matrix[np.diag_indices_from(matrix)] += self.diagonal()
+        for b in self.blocks:
+            block = matrix[np.ix_(b, b)]
+            block += self.group_var
+            block[np.diag_indices_from(block)] -= self.group_var  # the diagonal already holds tau^2
+            matrix[np.ix_(b, b)] = block
+        return matrix
+
+    def dense(self) -> np.ndarray:
+        """Sigma as an (n, n) matrix."""
+        return self.add_to(np.zeros((self.var.size, self.var.size)))
+
+    def subset(self, use: np.ndarray) -> NoiseCovariance:
+        """The covariance of the observations in ``use`` (mask or indices)."""
+        return NoiseCovariance(self.var[use], self.group[use], self.group_var)
+
+    def draw(self, normals: np.ndarray) -> np.ndarray:
+        """eps = L z ~ N(0, Sigma) from standard normals z of shape (n, k) (L: blockwise Cholesky)."""
+        z = np.asarray(normals, dtype=float)
+        eps = z * np.sqrt(self.diagonal())[:, None]
+        for b in self.blocks:
+            cov = np.full((b.size, b.size), self.group_var)
+            cov[np.diag_indices_from(cov)] += self.var[b]
+            eps[b] = cholesky(cov, lower=True, check_finite=False) @ z[b]
+        return eps

@@ -302,6 +302,7 @@ class GridSampler:
             self.use = np.ones(len(pts), bool) if (use is None or posterior.sparse) else np.asarray(use, bool)
             pts = pts[self.use]
             self.noise_var = None if posterior.sparse else posterior.noise_var[self.use]
+            self.noise = None if posterior.sparse else posterior.noise.subset(self.use)
             self.g_obs = altitude_profile(pts[:, 2], profile)  # g(z_i) of the conditioning points
             idx, w, c = interpolation_weights(grid, pts, self.lengths)
             n = idx.shape[0]
@@ -316,7 +317,7 @@ class GridSampler:
                 s_mat = interpolated_kernel(grid, pts, self.lengths, self.sigma, corr)
                 s_mat *= self.g_obs[:, None]
                 s_mat *= self.g_obs[None, :]
-                s_mat[np.diag_indices_from(s_mat)] += self.noise_var
+                self.noise.add_to(s_mat)
                 self.s_chol, _ = robust_cholesky(s_mat, "interpolated kernel matrix for the samples")
         else:
             self.w_obs = None
@@ -358,7 +359,7 @@ class GridSampler:
             if update_normals is None:
                 update_normals = rng.standard_normal(f_at_points.shape)
             if self.s_chol is not None:
-                eps = update_normals * np.sqrt(self.noise_var)[:, None]
+                eps = self.noise.draw(update_normals)
                 coef = -cho_solve((self.s_chol, True), f_at_points + eps, check_finite=False)
             else:
                 coef = self.posterior.sample_coefficients(f_at_points, None, normals=update_normals)
