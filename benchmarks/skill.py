@@ -51,7 +51,7 @@ from balloonpath.verify import ZONE_PROBABILITIES, energy_score, inside_ellipses
 from balloonpath.winds.aircraft import derive_observations
 from balloonpath.winds.gp import background_error_sigma, fit_wind_field
 from balloonpath.winds.observations import WindObservations
-from balloonpath.winds.synthetic import SyntheticAtmosphereField
+from balloonpath.winds.synthetic import SyntheticAtmosphereField, misforecast
 from balloonpath.winds.traffic import simulate_traffic, write_report_table
 from balloonpath.zones import compute_zones
 
@@ -107,13 +107,7 @@ def background_of(truth: SyntheticAtmosphereField, case: int, sigma_m_s: float,
     """
     if error_model == "eddies":
         return truth.perturbed(seed=1_000 + case, amplitude_m_s=sigma_m_s)
-    rng = np.random.default_rng([7, case])
-    p = dict(truth.params)
-    p["jet_speed_m_s"] *= 1.0 + 0.06 * float(rng.normal())
-    p["jet_altitude_m"] += 300.0 * float(rng.normal())
-    p["jet_direction_deg"] += 3.0 * float(rng.normal())
-    shifted = SyntheticAtmosphereField(truth.center_lat, truth.center_lon, truth.t0_s, seed=truth.seed, **p)
-    return shifted.perturbed(seed=1_000 + case, amplitude_m_s=0.8 * sigma_m_s)
+    return misforecast(truth, [7, case], 1_000 + case, 0.8 * sigma_m_s)
 
 
 def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,

@@ -3,7 +3,8 @@
     .venv/bin/python scenarios/generate.py
 
 Every number written here is invented: a synthetic "truth" atmosphere (balloonpath.winds.synthetic), a
-background forecast that is the truth plus a smooth seeded error, and simulated aircraft flying through
+background forecast that is the truth with its jet a little misplaced plus smooth seeded eddies
+(``misforecast``), and simulated aircraft flying through
 the truth (balloonpath.winds.traffic). Place names are invented too. The files are committed so that the
 demo and the tests need no generation step; this script documents how they were made.
 """
@@ -17,7 +18,12 @@ import numpy as np
 
 from balloonpath.fileio import atomic_write_text
 from balloonpath.timeutil import parse_iso
-from balloonpath.winds.synthetic import SyntheticAtmosphereField, write_grid_netcdf, write_sounding_csv
+from balloonpath.winds.synthetic import (
+    SyntheticAtmosphereField,
+    misforecast,
+    write_grid_netcdf,
+    write_sounding_csv,
+)
 from balloonpath.winds.traffic import simulate_traffic, write_raw_messages, write_report_table
 
 HERE = Path(__file__).resolve().parent
@@ -31,7 +37,7 @@ def prairie() -> None:
     launch = parse_iso("2027-05-14T12:30:00Z")
     truth = SyntheticAtmosphereField(lat0, lon0, launch, seed=11, jet_speed_m_s=42.0,
                                      jet_direction_deg=255.0, surface_wind_m_s=4.0, ground_m=560.0)
-    background = truth.perturbed(seed=5, amplitude_m_s=4.0)
+    background = misforecast(truth, jet_seed=[7, 2027], eddy_seed=5, eddy_rms_m_s=2.5)
     lats = np.arange(36.5, 41.01, 0.25)
     lons = np.arange(-101.5, -94.99, 0.25)
     times = launch + np.arange(-3, 10, 3) * 3600.0

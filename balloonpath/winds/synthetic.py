@@ -629,3 +629,32 @@ __all__ = [
     "write_grid_netcdf",
     "write_sounding_csv",
 ]
+
+
+def misforecast(
+    truth: SyntheticAtmosphereField,
+    jet_seed: int | list[int],
+    eddy_seed: int,
+    eddy_rms_m_s: float,
+    jet_speed_fraction: float = 0.06,
+    jet_altitude_m: float = 300.0,
+    jet_direction_deg: float = 3.0,
+) -> SyntheticAtmosphereField:
+    """A plausible background forecast of ``truth``: its jet a little misplaced, plus smooth eddies.
+
+    Real forecasts' largest wind errors are a jet a little too strong or weak, too high or low, or turned;
+    such errors are coherent through the troposphere (vertical scales > 10 km), which eddies alone lack
+    (their 3-12 km vertical wavelengths average out over an ascent). The returned field is the same field
+    (same seed: same eddies and meander) with the jet speed scaled by 1 + N(0, jet_speed_fraction^2), its
+    altitude shifted by N(0, jet_altitude_m^2) and its direction turned by N(0, jet_direction_deg^2) (draws
+    from ``numpy.random.default_rng(jet_seed)``), plus eddies of rms ``eddy_rms_m_s`` per component
+    (:meth:`SyntheticAtmosphereField.perturbed` with ``eddy_seed``). The default sizes are our own
+    choice for a 12 h forecast (invented data, not a verification statistic).
+    """
+    rng = np.random.default_rng(jet_seed)
+    p = dict(truth.params)
+    p["jet_speed_m_s"] *= 1.0 + jet_speed_fraction * float(rng.normal())
+    p["jet_altitude_m"] += jet_altitude_m * float(rng.normal())
+    p["jet_direction_deg"] += jet_direction_deg * float(rng.normal())
+    shifted = SyntheticAtmosphereField(truth.center_lat, truth.center_lon, truth.t0_s, seed=truth.seed, **p)
+    return shifted.perturbed(seed=eddy_seed, amplitude_m_s=eddy_rms_m_s)
