@@ -34,22 +34,7 @@ from balloonpath.result import ForecastResult, Points, Track  # noqa: E402
 LAUNCH = datetime(2027, 5, 14, 12, 30, tzinfo=UTC)  # the time of conftest.MINIMAL_PLAN
 LAT0, LON0, ELEV0 = 47.25, 8.5, 420.0
 
-RATES_PLAN = """\
-[launch]
-latitude = 47.25
-longitude = 8.5
-time = 2027-05-14T12:30:00Z
-elevation_m = 420.0
-site_name = "Brambleford Common"
-
-[rates]
-ascent_m_s = 5.0
-burst_altitude_m = 30000.0
-descent_sea_level_m_s = 5.5
-
-[winds]
-sounding = "sounding.csv"
-"""
+from conftest import MINIMAL_PLAN as RATES_PLAN  # noqa: E402  (one shared minimal plan)
 
 
 def _write_plan(tmp: Path, text: str) -> Path:
