@@ -27,6 +27,7 @@ import numpy as np
 
 from balloonpath.atmosphere import G0, SEA_LEVEL_DENSITY, Atmosphere, StandardAtmosphere
 from balloonpath.errors import PhysicsError, input_error
+from balloonpath.flight.drag import drag_balance_speed_m_s
 from balloonpath.flight.lift import integrate_inverse_speed
 
 
@@ -45,16 +46,7 @@ def terminal_velocity_m_s(
     [Knacke1991] §4).
     A is the canopy's nominal area S0 = pi D0^2 / 4 (vents included) when Cd is the nominal Cd0.
     """
-    return np.sqrt(
-        2.0
-        * np.asarray(mass_kg, dtype=float)
-        * gravity_m_s2
-        / (
-            np.asarray(air_density_kg_m3, dtype=float)
-            * np.asarray(drag_coefficient, dtype=float)
-            * np.asarray(area_m2, dtype=float)
-        )
-    )
+    return drag_balance_speed_m_s(mass_kg, air_density_kg_m3, drag_coefficient, area_m2, gravity_m_s2)
 
 
 def parachute_descent_rate(

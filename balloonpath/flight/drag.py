@@ -31,6 +31,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from balloonpath.atmosphere import G0
+
 DRAG_MODELS = ("constant", "reynolds")
 
 #: Subcritical sphere drag coefficient, Re ~ 1e3-2e5 [Hoerner1965] (from memory; REFERENCES.md §3a).
@@ -46,6 +48,28 @@ CRISIS_STEEPNESS = 8.0
 #: Newton iteration cap and tolerance (on ln v) of :func:`solve_ascent_speed`.
 SOLVE_MAX_ITERATIONS = 30
 SOLVE_TOLERANCE = 1e-9
+
+
+def drag_balance_speed_m_s(
+    mass_kg: np.ndarray | float,
+    air_density_kg_m3: np.ndarray | float,
+    drag_coefficient: np.ndarray | float,
+    area_m2: np.ndarray | float,
+    gravity_m_s2: float = G0,
+) -> np.ndarray:
+    """Speed (m/s, positive) at which drag balances the weight of ``mass_kg``.
+
+    Notes
+    -----
+    m g = 1/2 rho v^2 Cd A, so v = sqrt(2 m g / (rho Cd A)) ([NASATerminal], [Potvin], [Knacke1991] §4).
+    The one drag balance of the project: a parachute's terminal velocity (m = the falling mass) and a
+    balloon's steady ascent (m = the free lift) both use it.
+    """
+    return np.sqrt(
+        2.0 * np.asarray(mass_kg, dtype=float) * gravity_m_s2
+        / (np.asarray(air_density_kg_m3, dtype=float) * np.asarray(drag_coefficient, dtype=float)
+           * np.asarray(area_m2, dtype=float))
+    )
 
 
 def morrison_drag_coefficient(reynolds: np.ndarray | float) -> np.ndarray:

@@ -48,6 +48,7 @@ from balloonpath.errors import PhysicsError, PracticeWarning, input_error
 from balloonpath.flight.drag import (
     DRAG_MODELS,
     ascent_drag_coefficient,
+    drag_balance_speed_m_s,
     drag_crisis_shape,
     solve_ascent_speed,
 )
@@ -153,16 +154,7 @@ def steady_ascent_rate(
     pilot-balloon form).
     """
     area = np.pi * np.asarray(diameter_m, dtype=float) ** 2 / 4.0
-    return np.sqrt(
-        2.0
-        * np.asarray(free_lift_kg, dtype=float)
-        * gravity_m_s2
-        / (
-            np.asarray(air_density_kg_m3, dtype=float)
-            * np.asarray(drag_coefficient, dtype=float)
-            * area
-        )
-    )
+    return drag_balance_speed_m_s(free_lift_kg, air_density_kg_m3, drag_coefficient, area, gravity_m_s2)
 
 
 def reynolds_number(
