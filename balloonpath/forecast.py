@@ -23,7 +23,7 @@ import numpy as np
 from balloonpath import __version__
 from balloonpath.atmosphere import Atmosphere, StandardAtmosphere
 from balloonpath.ensemble import State, Trajectories, draw_member_factors, integrate
-from balloonpath.errors import WarningLog, recording_warnings
+from balloonpath.errors import WarningLog, input_error, recording_warnings
 from balloonpath.fileio import atomic_write_text
 from balloonpath.flight.vertical import VerticalParams, perturbed, vertical_params_from_plan
 from balloonpath.geodesy import inverse
@@ -76,7 +76,7 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
         info["sources"].append(f"fitted field {w.field.name}")
         info["gp"] = getattr(field, "info", None)
         info["observations"] = int(getattr(field, "n_observations", 0))
-        return LoadedWinds(field, atmosphere, info)
+        return LoadedWinds(_calibrated(field, plan, info), atmosphere, info)
 
     background: WindField
     if w.grid is not None:
@@ -120,7 +120,19 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
         obs, background, center=(plan.launch.latitude, plan.launch.longitude), lead_time_h=lead_h,
     )
     info["gp"] = getattr(field, "info", None)
-    return LoadedWinds(field, atmosphere, info, obs if len(obs) else None)
+    return LoadedWinds(_calibrated(field, plan, info), atmosphere, info, obs if len(obs) else None)
+
+
+def _calibrated(field: WindField, plan: Plan, info: dict[str, Any]) -> WindField:
+    """The field with the plan's ``[ensemble] wind_spread_factor`` applied (recorded in ``info``)."""
+    factor = float(plan.ensemble.wind_spread_factor)
+    info["spread_factor"] = factor
+    if factor == 1.0:
+        return field
+    if not hasattr(field, "with_spread_factor"):
+        raise input_error(plan.path, "[ensemble] wind_spread_factor",
+                          "this wind field has no uncertainty model to scale", "remove the key")
+    return field.with_spread_factor(factor)
 
 
 def _background_of(plan: Plan, info: dict[str, Any], atmosphere_holder: list) -> tuple[WindField, None]:

@@ -159,6 +159,10 @@ class EnsembleSpec:
     descent_sigma_fraction: float = key(0.10, low=0.0, high=1.0, doc="sd of the descent rate")
     launch_delay_sigma_min: float = key(0.0, low=0.0, high=1_440.0, doc="sd of a (half-normal) launch delay")
     wind_uncertainty: bool = key(True, doc="draw wind realisations from the field's uncertainty model")
+    wind_spread_factor: float = key(
+        1.0, low=0.1, high=10.0,
+        doc="multiplies the wind realisations' spread about the mean (a calibration: `verify --many`)",
+    )
     time_step_s: float = key(10.0, low=0.5, high=120.0, doc="integration step, s")
 
 

@@ -25,6 +25,9 @@ References
 [GneitingRaftery2007] T. Gneiting and A. E. Raftery, "Strictly proper scoring rules, prediction, and
     estimation", J. Amer. Statist. Assoc. 102(477):359-378 (2007): the CRPS in kernel form, the
     closed form for a normal forecast and the energy score (from memory).
+[Gneiting2005] T. Gneiting, A. E. Raftery, A. H. Westveld and T. Goldman, "Calibrated probabilistic
+    forecasting using ensemble model output statistics and minimum CRPS estimation", Mon. Wea. Rev.
+    133:1098-1118 (2005): spread parameters fitted by minimising a proper score over past cases (from memory).
 [NASATerminal], [Knacke1991]: terminal velocity v = sqrt(2 m g / (rho Cd A)) (see
     :mod:`balloonpath.flight.descent`).
 """
@@ -136,11 +139,132 @@ def energy_score(members_xy: np.ndarray, observation_xy: np.ndarray, chunk: int 
     if n == 0:
         raise input_error(None, "members", "the ensemble is empty", "give at least one member")
     first = float(np.mean(np.linalg.norm(x - y, axis=1)))
+    return first - 0.5 * mean_pairwise_distance(x, chunk)
+
+
+def mean_pairwise_distance(points: np.ndarray, chunk: int = 1024) -> float:
+    """(1 / N^2) sum_ij ||x_i - x_j|| of points (N, d), in blocks of ``chunk`` rows (memory O(chunk N))."""
+    x = np.atleast_2d(np.asarray(points, dtype=float))
+    n = x.shape[0]
     pair = 0.0
     for a in range(0, n, chunk):
         block = x[a:a + chunk]
         pair += float(np.sum(np.sqrt(np.sum((block[:, None, :] - x[None, :, :]) ** 2, axis=-1))))
-    return first - 0.5 * pair / n**2
+    return pair / n**2
+
+
+# ------------------------------------------------------------------------------ spread calibration
+#: Fewer verified flights than this: no spread factor is fitted.
+MIN_FLIGHTS_FOR_SPREAD = 5
+#: Allowed range of the fitted factor (the plan key's bounds).
+SPREAD_FACTOR_BOUNDS = (0.1, 10.0)
+
+
+@dataclass(frozen=True)
+class SpreadTerms:
+    """What the energy score of one flight's scaled ensemble needs (:func:`scaled_energy_score`).
+
+    ``deviations`` (N, 2): members minus the ensemble mean; ``residual`` (2,): the flown landing minus the
+    mean; ``pair_mean``: the mean pairwise distance of the members (all in metres, local plane).
+    """
+
+    deviations: np.ndarray
+    residual: np.ndarray
+    pair_mean: float
+
+    @staticmethod
+    def of(members_xy: np.ndarray, observation_xy: np.ndarray) -> SpreadTerms:
+        """Terms of an ensemble of points and the observed point."""
+        x = np.atleast_2d(np.asarray(members_xy, dtype=float))
+        x = x[np.all(np.isfinite(x), axis=1)]
+        if x.shape[0] < 2:
+            raise input_error(None, "members", f"{x.shape[0]} finite points", "run the forecast with more members")
+        m = x.mean(axis=0)
+        return SpreadTerms(x - m, np.asarray(observation_xy, dtype=float).ravel() - m, mean_pairwise_distance(x))
+
+
+def scaled_energy_score(terms: SpreadTerms, factor: float) -> float:
+    """Energy score of the ensemble whose deviations from its mean are multiplied by ``factor``.
+
+    ES(c) = (1/N) sum_i ||c d_i - r|| - (c / 2) (1/N^2) sum_ij ||d_i - d_j|| with d the deviations and r the
+    observation minus the mean ([GneitingRaftery2007], beta = 1): the pairwise term is linear in c and the
+    first is convex, so ES(c) is convex in c. ``factor`` = 1 gives :func:`energy_score`.
+    """
+    c = float(factor)
+    return float(np.mean(np.linalg.norm(c * terms.deviations - terms.residual, axis=1)) - 0.5 * c * terms.pair_mean)
+
+
+@dataclass(frozen=True)
+class SpreadFit:
+    """The spread factor that minimises the mean energy score over verified flights.
+
+    ``factor`` multiplies the spread the flights were forecast with; ``interval`` is its 5-95 % bootstrap
+    interval over flights; ``energy_score_m`` / ``energy_score_fitted_m`` the mean energy score at factor 1
+    and at ``factor``.
+    """
+
+    factor: float
+    interval: tuple[float, float]
+    flights: int
+    energy_score_m: float
+    energy_score_fitted_m: float
+    bootstrap: int
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain dict (JSON)."""
+        return {"factor": self.factor, "interval_5_95": list(self.interval), "flights": self.flights,
+                "mean_energy_score_m": self.energy_score_m, "mean_energy_score_fitted_m": self.energy_score_fitted_m,
+                "bootstrap_resamples": self.bootstrap, "method": "minimum mean energy score [GneitingRaftery2007]"}
+
+
+def _best_factor(terms: list[SpreadTerms]) -> float:
+    from scipy.optimize import minimize_scalar
+
+    lo, hi = np.log(SPREAD_FACTOR_BOUNDS[0]), np.log(SPREAD_FACTOR_BOUNDS[1])
+    res = minimize_scalar(lambda lc: sum(scaled_energy_score(t, math.exp(lc)) for t in terms),
+                          bounds=(lo, hi), method="bounded", options={"xatol": 1e-4})
+    return float(math.exp(res.x))
+
+
+def fit_spread_factor(terms: list[SpreadTerms], n_bootstrap: int = 200, seed: int = 0) -> SpreadFit:
+    """Fit one factor on the spread of every flight's ensemble by minimum mean energy score.
+
+    Parameters
+    ----------
+    terms : list of SpreadTerms
+        One per verified flight (:meth:`SpreadTerms.of` of its landing points and the flown landing).
+    n_bootstrap : int
+        Resamples of the flights for the 5-95 % interval (seeded: the result is deterministic).
+    seed : int
+        Seed of the resampling.
+
+    Returns
+    -------
+    SpreadFit
+
+    Notes
+    -----
+    Minimum-score estimation of a spread parameter, as in ensemble model output statistics (EMOS,
+    [Gneiting2005], which minimises the CRPS); here the energy score of the 2-D landing point, a strictly
+    proper score ([GneitingRaftery2007]), so in expectation the minimum is at the factor that makes the
+    scaled ensemble match the distribution of the flown landings. Scaling the landing deviations
+    approximates scaling the wind deviations (``[ensemble] wind_spread_factor``): landings respond
+    almost linearly to small wind changes (checked in tests/test_verify.py). The factor is one number for
+    all flights; it corrects the size of the zones, not their shape or a bias of the mean.
+    """
+    if len(terms) < MIN_FLIGHTS_FOR_SPREAD:
+        raise input_error(None, "flights", f"{len(terms)} verified flights are too few to fit a spread factor",
+                          f"verify at least {MIN_FLIGHTS_FOR_SPREAD} flights")
+    best = _best_factor(terms)
+    rng = np.random.default_rng(seed)
+    boots = [_best_factor([terms[i] for i in rng.integers(0, len(terms), len(terms))]) for _ in range(n_bootstrap)]
+    lo, hi = (np.quantile(boots, [0.05, 0.95]) if boots else (best, best))
+    return SpreadFit(
+        factor=best, interval=(float(lo), float(hi)), flights=len(terms),
+        energy_score_m=float(np.mean([scaled_energy_score(t, 1.0) for t in terms])),
+        energy_score_fitted_m=float(np.mean([scaled_energy_score(t, best) for t in terms])),
+        bootstrap=int(n_bootstrap),
+    )
 
 
 def mahalanobis_rank(members_xy: np.ndarray, observation_xy: np.ndarray) -> float:
@@ -907,12 +1031,19 @@ def verify_many(folder: str | Path, out_dir: str | Path, members: int | None = N
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     rows: list[dict[str, Any]] = []
+    terms: list[SpreadTerms] = []
+    factors: list[float] = []
     cases = find_flights(folder)
     for k, case in enumerate(cases):
         plan = load_plan(case.plan_path)
         flown = read_flown_track(case.track_path)
         ver, result, zones = verify_flight(plan, flown, members=members, seed=seed)
         write_verification(ver, result, zones, flown, out / case.name, plot=plot)
+        if result.n_members > 2:
+            tx, ty = zones.projection().to_local(*ver.flown_landing)
+            terms.append(SpreadTerms.of(np.column_stack([zones.landing_x_m, zones.landing_y_m]),
+                                        [float(tx), float(ty)]))
+            factors.append(float(plan.ensemble.wind_spread_factor))
         rows.append({"flight": case.name, "landing_error_m": ver.landing_error_m,
                      "landing_error_bearing_deg": ver.landing_error_bearing_deg,
                      "burst_altitude_error_m": ver.burst_altitude_error_m,
@@ -921,6 +1052,7 @@ def verify_many(folder: str | Path, out_dir: str | Path, members: int | None = N
         if progress is not None:
             progress(k + 1, len(cases))
     agg = pool_scores(rows)
+    agg["spread"] = spread_advice(terms, factors)
     head = ["flight", "landing_error_km", "bearing_deg", "burst_altitude_error_m", "in_50", "in_90", "in_95",
             "rank", "energy_score_km", "crps_distance_km"]
     lines = [",".join(head)]
@@ -936,6 +1068,30 @@ def verify_many(folder: str | Path, out_dir: str | Path, members: int | None = N
            "scores_reference": "GneitingRaftery2007"}
     atomic_write_text(out / "many.json", json.dumps(_jsonable(doc), indent=2) + "\n")
     return ManySummary(tuple(rows), agg)
+
+
+def spread_advice(terms: list[SpreadTerms], factors: list[float]) -> dict[str, Any]:
+    """The fitted spread factor and the plan line it suggests (``{"fitted": False, "reason": ...}`` if none).
+
+    ``factors`` are the ``[ensemble] wind_spread_factor`` values the flights were forecast with: the fit
+    multiplies them, so the suggested value is their common value times the fitted factor (when the flights
+    used different values, only the relative factor is given).
+    """
+    if len(terms) < MIN_FLIGHTS_FOR_SPREAD:
+        return {"fitted": False, "reason": f"{len(terms)} flights with an ensemble; at least "
+                f"{MIN_FLIGHTS_FOR_SPREAD} are needed to fit a spread factor"}
+    fit = fit_spread_factor(terms)
+    out = {"fitted": True, **fit.as_dict()}
+    if len(set(factors)) == 1:
+        value = factors[0] * fit.factor
+        value = min(max(value, SPREAD_FACTOR_BOUNDS[0]), SPREAD_FACTOR_BOUNDS[1])
+        out["plan_line"] = f"wind_spread_factor = {value:.2f}"
+        out["plan_table"] = "ensemble"
+    else:
+        out["plan_line"] = None
+        out["note"] = ("the flights used different [ensemble] wind_spread_factor values; multiply each by "
+                       f"{fit.factor:.2f}")
+    return out
 
 
 def _cell(value: float, decimals: int) -> str:
@@ -955,10 +1111,11 @@ def _jsonable(obj: Any) -> Any:
 
 
 __all__ = [
-    "Calibration", "FlightCase", "FlightEvents", "ManySummary", "RateFit", "Verification",
-    "ascent_rate_from_track", "band_speeds", "calibrate", "crps_ensemble", "crps_gaussian", "energy_score",
-    "find_flights", "flight_events", "inside_ellipses", "launch_time_from_track", "mahalanobis_rank",
-    "parachute_drag_coefficient", "plot_verification", "pool_scores", "read_flown_track",
-    "sea_level_descent_rate_from_track", "summary_lines", "track_error_vs_time", "verify_flight",
-    "verify_many", "write_track_csv", "write_verification",
+    "Calibration", "FlightCase", "FlightEvents", "ManySummary", "RateFit", "SpreadFit", "SpreadTerms",
+    "Verification", "ascent_rate_from_track", "band_speeds", "calibrate", "crps_ensemble", "crps_gaussian",
+    "energy_score", "find_flights", "fit_spread_factor", "flight_events", "inside_ellipses",
+    "launch_time_from_track", "mahalanobis_rank", "mean_pairwise_distance", "parachute_drag_coefficient",
+    "plot_verification", "pool_scores", "read_flown_track", "scaled_energy_score",
+    "sea_level_descent_rate_from_track", "spread_advice", "summary_lines", "track_error_vs_time",
+    "verify_flight", "verify_many", "write_track_csv", "write_verification",
 ]

@@ -15,6 +15,13 @@ For each case (all invented, seeded by the case number):
 5. two forecasts with the pipeline (:func:`~balloonpath.forecast.run_forecast`): background only (its
    prior error model) and fused; each scored against the truth landing with :mod:`balloonpath.verify`.
 
+6. spread calibration (``--calibrate-cases K``, default 48): the method of ``verify --many``
+   (:func:`balloonpath.verify.fit_spread_factor`, minimum energy score) fits one spread factor per forecast
+   on K training cases numbered from ``TRAIN_FIRST`` (never the scored ones); each scored case is then also
+   forecast with that factor applied to its field (``with_spread_factor``, what ``[ensemble]
+   wind_spread_factor`` does) and scored as ``<name>_calibrated``. This is an out-of-sample test of the
+   calibration a team would run on its past flights.
+
 The vertical model is held exact (ensemble ascent/burst/descent spreads set to zero and the truth flies
 the plan's rates), so the coverage tests the WIND uncertainty alone, which is what the GP must get right.
 
@@ -22,11 +29,12 @@ Printed: per case the landing errors, the cut in percent and whether the truth l
 50/90/95 % zones; then the median cut and the coverage of each zone for both forecasts, the mean rank
 and the mean energy score [GneitingRaftery2007]. Run::
 
-    .venv/bin/python benchmarks/skill.py --workers 2               # 24 cases, 200 members
-    .venv/bin/python benchmarks/skill.py --learn once --json skill.json
+    .venv/bin/python benchmarks/skill.py --workers 2               # 24 scored + 48 training cases
+    .venv/bin/python benchmarks/skill.py --cases 96 --workers 2 --json skill.json
+    .venv/bin/python benchmarks/skill.py --calibrate-cases 0       # no calibration (half the time)
 
 With 24 cases the coverage of one zone has a binomial standard deviation of about 10 points at 50 % and 4-6
-points at 90-95 %: read the rank (PIT) mean and histogram beside it.
+points at 90-95 % (96 cases: 5 / 3 / 2): read the rank (PIT) mean and histogram beside it.
 """
 
 from __future__ import annotations
@@ -39,6 +47,7 @@ import tempfile
 import time
 import warnings
 from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -47,15 +56,25 @@ from balloonpath.atmosphere import StandardAtmosphere
 from balloonpath.forecast import LoadedWinds, fly_nominal, run_forecast
 from balloonpath.geodesy import inverse
 from balloonpath.plan import parse_plan
-from balloonpath.verify import ZONE_PROBABILITIES, energy_score, inside_ellipses, mahalanobis_rank
+from balloonpath.verify import (
+    ZONE_PROBABILITIES,
+    SpreadTerms,
+    energy_score,
+    fit_spread_factor,
+    inside_ellipses,
+    mahalanobis_rank,
+)
 from balloonpath.winds.aircraft import derive_observations
 from balloonpath.winds.gp import background_error_sigma, fit_wind_field
+from balloonpath.winds.gp_kernels import GPHyperparameters
 from balloonpath.winds.observations import WindObservations
 from balloonpath.winds.synthetic import SyntheticAtmosphereField, misforecast
 from balloonpath.winds.traffic import simulate_traffic, write_report_table
 from balloonpath.zones import compute_zones
 
 BASE_TIME_S = 1_815_000_000.0  # an invented day in 2027
+#: First training case of the spread calibration (its cases never overlap the scored cases 0..N-1).
+TRAIN_FIRST = 1_000
 LEAD_TIME_H = 12.0
 #: Aircraft per case and their reporting (modest counts keep a case to seconds).
 N_AIRCRAFT = 16
@@ -85,6 +104,7 @@ def _score(result, truth_lat: float, truth_lon: float) -> dict:
     pts = np.column_stack([zones.landing_x_m, zones.landing_y_m])
     err, _ = inverse(result.landing.lat[0], result.landing.lon[0], truth_lat, truth_lon)
     return {
+        "_terms": SpreadTerms.of(pts, [float(tx), float(ty)]),
         "landing_error_m": float(err),
         "inside": {f"{p:.2f}": v for p, v in inside_ellipses(zones.ellipses, float(tx), float(ty)).items()},
         "rank": mahalanobis_rank(pts, [float(tx), float(ty)]),
@@ -110,11 +130,29 @@ def background_of(truth: SyntheticAtmosphereField, case: int, sigma_m_s: float,
     return misforecast(truth, [7, case], 1_000 + case, 0.8 * sigma_m_s)
 
 
-def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
-             heading_bias_fraction: float = 0.15, error_model: str = "jet+eddies",
-             qc_reference: str = "background") -> dict:
-    """One twin experiment; returns the scores of both forecasts (deterministic in ``case``)."""
-    warnings.simplefilter("ignore")
+@dataclass
+class Case:
+    """One twin experiment's set-up: truth, background, aircraft winds, both fields, the plan, the truth flight."""
+
+    number: int
+    lat0: float
+    lon0: float
+    t0: float
+    jet_alt_m: float
+    truth: SyntheticAtmosphereField
+    background: SyntheticAtmosphereField
+    obs: WindObservations
+    fused: object
+    prior: object
+    plan: object
+    truth_trajectory: object
+    timings: dict
+
+
+def build_case(case: int, folder: Path, members: int = 200, hyperparameters: dict | None = None,
+               heading_bias_fraction: float = 0.15, error_model: str = "jet+eddies",
+               qc_reference: str = "background", shared_platform_error: bool | None = None) -> Case:
+    """Steps 1-4 of the module docstring for case ``case`` (deterministic); files go to ``folder``."""
     rng = np.random.default_rng([2027, case])
     lat0 = float(rng.uniform(32.0, 56.0))
     lon0 = float(rng.uniform(-115.0, 25.0))
@@ -129,31 +167,49 @@ def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
     background = background_of(truth, case, sigma_b, error_model)
     timings = {}
     clock = time.perf_counter()
-    with tempfile.TemporaryDirectory() as tmp:
-        folder = Path(tmp)
-        traffic = simulate_traffic(truth, lat0, lon0, t0 - TRAFFIC_HOURS * 3600.0, TRAFFIC_HOURS * 3600.0, rng,
-                                   n_aircraft=N_AIRCRAFT, step_s=4.0,
-                                   heading_bias_fraction=heading_bias_fraction)
-        table = write_report_table(traffic, folder / "reports.csv", rng, interval_s=20.0)
-        obs, _report = derive_observations([table], background=background if qc_reference == "background" else None)
-        timings["aircraft_s"] = time.perf_counter() - clock
-        clock = time.perf_counter()
-        from balloonpath.winds.gp_kernels import GPHyperparameters
+    traffic = simulate_traffic(truth, lat0, lon0, t0 - TRAFFIC_HOURS * 3600.0, TRAFFIC_HOURS * 3600.0, rng,
+                               n_aircraft=N_AIRCRAFT, step_s=4.0, heading_bias_fraction=heading_bias_fraction)
+    table = write_report_table(traffic, folder / "reports.csv", rng, interval_s=20.0)
+    obs, _report = derive_observations([table], background=background if qc_reference == "background" else None)
+    timings["aircraft_s"] = time.perf_counter() - clock
+    clock = time.perf_counter()
+    hp = GPHyperparameters(**hyperparameters) if hyperparameters else None
+    shared = {} if shared_platform_error is None else {"shared_platform_error": shared_platform_error}
+    fused = fit_wind_field(obs, background, center=(lat0, lon0), lead_time_h=LEAD_TIME_H,
+                           hyperparameters=hp, optimize=hp is None, **shared)
+    prior = fit_wind_field(WindObservations.empty(), background, center=(lat0, lon0), lead_time_h=LEAD_TIME_H)
+    timings["fit_s"] = time.perf_counter() - clock
+    plan = _plan(folder, lat0, lon0, t0, members, seed=case + 1)
+    truth_traj, _ = fly_nominal(plan, LoadedWinds(truth, StandardAtmosphere(), {}))
+    return Case(case, lat0, lon0, t0, jet_alt, truth, background, obs, fused, prior, plan, truth_traj, timings)
 
-        hp = GPHyperparameters(**hyperparameters) if hyperparameters else None
-        fused = fit_wind_field(obs, background, center=(lat0, lon0), lead_time_h=LEAD_TIME_H,
-                               hyperparameters=hp, optimize=hp is None)
-        prior = fit_wind_field(WindObservations.empty(), background, center=(lat0, lon0), lead_time_h=LEAD_TIME_H)
-        timings["fit_s"] = time.perf_counter() - clock
+
+def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
+             heading_bias_fraction: float = 0.15, error_model: str = "jet+eddies",
+             qc_reference: str = "background", spread_factors: dict | None = None,
+             shared_platform_error: bool | None = None) -> dict:
+    """One twin experiment; returns the scores of both forecasts (deterministic in ``case``).
+
+    ``spread_factors`` ({"background": c_b, "fused": c_f}, fitted on other cases): also run each forecast
+    with its field's spread scaled (``with_spread_factor``), scored as ``"<name>_calibrated"``.
+    """
+    warnings.simplefilter("ignore")
+    with tempfile.TemporaryDirectory() as tmp:
+        c = build_case(case, Path(tmp), members, hyperparameters, heading_bias_fraction, error_model, qc_reference,
+                       shared_platform_error)
+        lat0, lon0, jet_alt, obs, timings, plan = c.lat0, c.lon0, c.jet_alt_m, c.obs, c.timings, c.plan
+        prior, fused, truth_traj = c.prior, c.fused, c.truth_trajectory
         clock = time.perf_counter()
-        plan = _plan(folder, lat0, lon0, t0, members, seed=case + 1)
         atm = StandardAtmosphere()
-        truth_traj, _ = fly_nominal(plan, LoadedWinds(truth, atm, {}))
         t_lat, t_lon = float(truth_traj.landing_lat[0]), float(truth_traj.landing_lon[0])
         out = {}
         for name, field in (("background", prior), ("fused", fused)):
             result = run_forecast(plan, winds=LoadedWinds(field, atm, {"sources": [name]}))
             out[name] = _score(result, t_lat, t_lon)
+            if spread_factors:
+                scaled = field.with_spread_factor(spread_factors[name])
+                result = run_forecast(plan, winds=LoadedWinds(scaled, atm, {"sources": [name]}))
+                out[f"{name}_calibrated"] = _score(result, t_lat, t_lon)
         timings["forecasts_s"] = time.perf_counter() - clock
     z = np.asarray(obs.alt_m)
     return {
@@ -176,7 +232,9 @@ def summarise(rows: list[dict]) -> dict:
     out["median_cut_percent"] = float(np.median(cut))
     out["cut_of_median_errors_percent"] = float(100.0 * (1.0 - np.median(fu) / np.median(bg)))
     out["median_cut_percent_jet_covered"] = float(np.median(cut[covered])) if covered.any() else None
-    for name in ("background", "fused"):
+    for name in ("background", "fused", "background_calibrated", "fused_calibrated"):
+        if name not in rows[0]:
+            continue
         keys = [f"{p:.2f}" for p in ZONE_PROBABILITIES]
         cov = {k: float(np.mean([r[name]["inside"][k] for r in rows])) for k in keys}
         ranks = np.array([r[name]["rank"] for r in rows])
@@ -206,27 +264,38 @@ def main(argv: list[str] | None = None) -> int:
                     "the aircraft's own median profile")
     ap.add_argument("--sigma", type=float, default=None,
                     help="diagnosis: replace the learned signal sd by this value (m/s) in the reused hyperparameters")
+    ap.add_argument("--calibrate-cases", type=int, default=48,
+                    help=f"training cases (numbered from {TRAIN_FIRST}, disjoint from the scored cases) on which the "
+                    "spread factor of each forecast is fitted (verify --many's method); 0: no calibration")
+    ap.add_argument("--shared-platform-error", choices=("on", "off"), default=None,
+                    help="diagnosis: force the GP's per-aircraft shared error on or off (default: the pipeline's)")
     ap.add_argument("--json", type=Path, default=None, help="also write the rows and summary here")
     args = ap.parse_args(argv)
+    if args.shared_platform_error is not None:
+        args.shared_platform_error = args.shared_platform_error == "on"
     start = time.perf_counter()
+    factors, fits = None, {}
+    if args.calibrate_cases > 0:
+        train = _run_cases(list(range(TRAIN_FIRST, TRAIN_FIRST + args.calibrate_cases)), args, None, None)
+        for name in ("background", "fused"):
+            fits[name] = fit_spread_factor([r[name]["_terms"] for r in train])
+        factors = {name: fit.factor for name, fit in fits.items()}
+        for name, fit in fits.items():
+            print(f"spread factor fitted on {fit.flights} training cases, {name}: {fit.factor:.3f} "
+                  f"(5-95 %: {fit.interval[0]:.3f}-{fit.interval[1]:.3f}; mean energy score "
+                  f"{fit.energy_score_m / 1e3:.2f} -> {fit.energy_score_fitted_m / 1e3:.2f} km)")
     cases = list(range(args.cases))
     rows: list[dict] = []
     hp = None
     if args.learn == "once":
-        first = run_case(0, args.members, None, args.heading_bias_fraction, args.error_model, args.qc_reference)
+        first = run_case(0, args.members, None, args.heading_bias_fraction, args.error_model, args.qc_reference,
+                         factors, args.shared_platform_error)
         rows.append(first)
         hp = dict(first["hyperparameters"])
         if args.sigma is not None:
             hp["sigma_m_s"] = float(args.sigma)
         cases = cases[1:]
-    if args.workers > 1:
-        with ProcessPoolExecutor(max_workers=args.workers) as pool:
-            k = len(cases)
-            rows += list(pool.map(run_case, cases, [args.members] * k, [hp] * k, [args.heading_bias_fraction] * k,
-                                  [args.error_model] * k, [args.qc_reference] * k))
-    else:
-        rows += [run_case(c, args.members, hp, args.heading_bias_fraction, args.error_model, args.qc_reference)
-                 for c in cases]
+    rows += _run_cases(cases, args, hp, factors)
     rows.sort(key=lambda r: r["case"])
     elapsed = time.perf_counter() - start
 
@@ -239,9 +308,11 @@ def main(argv: list[str] | None = None) -> int:
         def flags(s: dict) -> str:
             return "/".join("y" if s["inside"][f"{p:.2f}"] else "n" for p in ZONE_PROBABILITIES)
 
+        cal = (f"  calibrated: bg {flags(r['background_calibrated'])} fused {flags(r['fused_calibrated'])}"
+               if "fused_calibrated" in r else "")
         print(f"{r['case']:>4} {r['observations']:>5} {r['obs_near_jet']:>4} {r['truth_distance_m'] / 1e3:>8.1f} "
               f"{b['landing_error_m'] / 1e3:>9.2f} {f['landing_error_m'] / 1e3:>9.2f} {cut:>6.0f}  "
-              f"{flags(b):>15}  {flags(f):>17}  {b['rank']:>7.2f}  {f['rank']:>10.2f}")
+              f"{flags(b):>15}  {flags(f):>17}  {b['rank']:>7.2f}  {f['rank']:>10.2f}{cal}")
     s = summarise(rows)
     print()
     print(f"cases {s['cases']}, members {args.members}, hyperparameters learned {args.learn}, heading-bias "
@@ -251,19 +322,37 @@ def main(argv: list[str] | None = None) -> int:
     print(f"median landing error: background {s['median_error_background_km']:.2f} km, fused "
           f"{s['median_error_fused_km']:.2f} km; median cut {s['median_cut_percent']:.0f} % (goal >= 60 %), "
           f"cut of the median errors {s['cut_of_median_errors_percent']:.0f} %")
-    for name in ("background", "fused"):
+    for name in ("background", "fused", "background_calibrated", "fused_calibrated"):
+        if name not in s:
+            continue
         d = s[name]
         cov = d["coverage"]
-        print(f"{name:>10}: coverage 50/90/95 % zones = " + "/".join(f"{100 * cov[k]:.0f}" for k in cov)
+        print(f"{name:>21}: coverage 50/90/95 % zones = " + "/".join(f"{100 * cov[k]:.0f}" for k in cov)
               + f" %; mean rank {d['mean_rank']:.2f} (0.50 calibrated), rank histogram {d['rank_histogram']}, "
               f"mean energy score {d['mean_energy_score_km']:.2f} km, median 90 % semi-major "
               f"{d['median_zone90_semi_major_km']:.1f} km")
+    for name in ("background", "fused"):
+        if name in fits:
+            s[f"{name}_spread_fit"] = fits[name].as_dict()
     n = s["cases"]
     print("binomial sd of a coverage with this many cases: "
           + ", ".join(f"{100 * math.sqrt(p * (1 - p) / n):.0f} pts at {p:.0%}" for p in ZONE_PROBABILITIES))
     if args.json is not None:
-        args.json.write_text(json.dumps({"rows": rows, "summary": s, "elapsed_s": elapsed}, indent=1) + "\n")
+        public = [{k: ({kk: vv for kk, vv in v.items() if kk != "_terms"} if isinstance(v, dict) else v)
+                   for k, v in r.items()} for r in rows]
+        args.json.write_text(json.dumps({"rows": public, "summary": s, "elapsed_s": elapsed}, indent=1) + "\n")
     return 0
+
+
+def _run_cases(cases: list[int], args: argparse.Namespace, hp: dict | None, factors: dict | None) -> list[dict]:
+    """run_case over ``cases`` (in ``args.workers`` processes), in case order."""
+    k = len(cases)
+    extra = ([args.members] * k, [hp] * k, [args.heading_bias_fraction] * k, [args.error_model] * k,
+             [args.qc_reference] * k, [factors] * k, [args.shared_platform_error] * k)
+    if args.workers > 1:
+        with ProcessPoolExecutor(max_workers=args.workers) as pool:
+            return list(pool.map(run_case, cases, *extra))
+    return [run_case(c, *(e[i] for e in extra)) for i, c in enumerate(cases)]
 
 
 if __name__ == "__main__":

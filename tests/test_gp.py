@@ -92,6 +92,10 @@ def test_matches_scikit_learn(profile):
     np.testing.assert_allclose(np.sqrt(var), gs * std_ref[:, 0], rtol=1e-6)
     lml, _ = log_marginal_likelihood(hp.to_log(), x, y, noise, profile=profile)
     assert lml == pytest.approx(ref.log_marginal_likelihood_value_ - 2 * np.sum(np.log(g)), rel=1e-6)
+    # Full posterior covariance (sklearn predict(return_cov=True)): cov = g g^T cov0.
+    _, cov_ref = ref.predict(xs, return_cov=True)
+    cov_ref = cov_ref[..., 0] if cov_ref.ndim == 3 else cov_ref
+    np.testing.assert_allclose(post.covariance(xs), gs[:, None] * gs[None, :] * cov_ref, rtol=1e-6, atol=1e-9)
 
 
 def test_altitude_profile_shape():
@@ -380,3 +384,35 @@ def test_shared_aircraft_error_reduces_information():
         eps = NoiseCovariance(var, group, tau**2).draw(rng.standard_normal((10, 20_000)))
         assert np.all(np.abs(np.cov(eps) - sigma) < 4 * np.sqrt((1 + tau**2) ** 2 * 2 / 20_000))
     assert np.all(sd["one"] > sd["ten"] + 0.05)
+
+
+def test_covariance_diagonal_is_the_variance_exact_dtc_and_scaled():
+    # The posterior covariance's diagonal equals mean_var's variance (exact GP and the DTC approximation),
+    # and a field's covariance carries its spread factor squared (std carries it once).
+    rng = np.random.default_rng(8)
+    obs = _obs(rng, 300)
+    bg = UniformField(10.0, 0.0)
+    hp = GPHyperparameters(120.0, 1.5, 4.0, 3.0)
+    exact = fit_wind_field(obs, bg, hyperparameters=hp, optimize=False)
+    dtc = fit_wind_field(obs, bg, hyperparameters=hp, optimize=False, max_exact=100, n_inducing=80)
+    assert dtc.posterior.sparse and not exact.posterior.sparse
+    lat = LAT0 + rng.uniform(-1, 1, 40)
+    lon = LON0 + rng.uniform(-1, 1, 40)
+    alt = rng.uniform(0, 20_000, 40)
+    t = T0 + rng.uniform(-2, 2, 40) * 3600
+    for field in (exact, dtc):
+        xs = field._local(lat, lon, alt, t)
+        _, var = field.posterior.mean_var(xs)
+        cov = field.posterior.covariance(xs)
+        np.testing.assert_allclose(np.diag(cov), var, rtol=1e-9, atol=1e-9)
+        assert np.min(np.linalg.eigvalsh(cov)) > -1e-8 * np.max(np.diag(cov))
+        scaled = field.with_spread_factor(0.6)
+        np.testing.assert_allclose(scaled.covariance(lat, lon, alt, t), 0.36 * field.covariance(lat, lon, alt, t),
+                                   rtol=1e-12)
+        np.testing.assert_allclose(scaled.std(lat, lon, alt, t)[0], 0.6 * field.std(lat, lon, alt, t)[0], rtol=1e-12)
+        np.testing.assert_array_equal(scaled.wind(lat, lon, alt, t)[0], field.wind(lat, lon, alt, t)[0])
+    prior = BackgroundErrorField(bg, 3.0, center=(LAT0, LON0))
+    np.testing.assert_allclose(np.sqrt(np.diag(prior.covariance(lat, lon, alt, t))), prior.std(lat, lon, alt, t)[0],
+                               rtol=1e-12)
+    with pytest.raises(ValueError, match="spread factor"):
+        exact.with_spread_factor(0.0)

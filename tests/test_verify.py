@@ -34,10 +34,14 @@ from balloonpath.verify import (
     crps_ensemble,
     crps_gaussian,
     energy_score,
+    SpreadTerms,
     find_flights,
+    fit_spread_factor,
     inside_ellipses,
     mahalanobis_rank,
     read_flown_track,
+    scaled_energy_score,
+    spread_advice,
     verify_flight,
     verify_many,
     write_track_csv,
@@ -271,6 +275,7 @@ def test_track_reader_and_many_folder(tmp_path: Path) -> None:
         many = verify_many(root, tmp_path / "out", members=30)
     agg = many.aggregate
     assert agg["flights"] == 1 and agg["median_landing_error_m"] < 0.05
+    assert agg["spread"]["fitted"] is False and "at least 5" in agg["spread"]["reason"]
     assert (tmp_path / "out" / "many.csv").read_text().startswith("flight,landing_error_km")
     with pytest.raises(InputDataError, match="contain no flight"):
         find_flights(root / "empty")
@@ -281,3 +286,111 @@ def test_cli_verify_needs_a_plan_and_a_track(capsys: pytest.CaptureFixture[str])
 
     assert main(["verify", "--out", "unused"]) == 2
     assert "verify: needs a plan and --flown TRACK; fix:" in capsys.readouterr().err
+
+
+# ------------------------------------------------------------------------------ spread calibration
+def _gaussian_cases(rng: np.random.Generator, n_cases: int, true_factor: float, n_members: int = 150):
+    """Flights whose ensemble sd is sd_truth / true_factor (so true_factor is the right correction)."""
+    out = []
+    for _ in range(n_cases):
+        sd_truth = rng.uniform(1e3, 8e3)  # spreads differ between flights, as real ones do
+        truth = rng.normal(0.0, sd_truth, 2)
+        members = rng.normal(0.0, sd_truth / true_factor, (n_members, 2))
+        out.append(SpreadTerms.of(members, truth))
+    return out
+
+
+def test_scaled_energy_score_at_factor_one_is_the_energy_score() -> None:
+    rng = np.random.default_rng(2)
+    pts, y = rng.normal(0.0, 1e3, (120, 2)), np.array([400.0, -900.0])
+    t = SpreadTerms.of(pts, y)
+    assert scaled_energy_score(t, 1.0) == pytest.approx(energy_score(pts, y), rel=1e-12)
+    # Scaling about the mean by c equals the energy score of the scaled points (definition).
+    m = pts.mean(axis=0)
+    assert scaled_energy_score(t, 0.6) == pytest.approx(energy_score(m + 0.6 * (pts - m), y), rel=1e-12)
+
+
+@pytest.mark.parametrize("true_factor", [0.7, 1.0, 1.4])
+def test_spread_factor_recovers_a_known_dispersion_error(true_factor: float) -> None:
+    # The energy score is strictly proper ([GneitingRaftery2007], from memory): its expectation is
+    # smallest when the forecast distribution is the truth's, i.e. at the factor that turns the
+    # ensemble's sd into the truth's. 400 invented flights; the estimate's sampling sd is about 3 %
+    # (measured over 20 seeds), so 8 % is a 2.5-sd bound, and the 5-95 % interval must hold the truth.
+    fit = fit_spread_factor(_gaussian_cases(np.random.default_rng(int(true_factor * 10)), 400, true_factor),
+                            n_bootstrap=100)
+    assert fit.factor == pytest.approx(true_factor, rel=0.08)
+    assert fit.interval[0] <= true_factor <= fit.interval[1]
+    assert fit.energy_score_fitted_m <= fit.energy_score_m + 1e-9
+    again = fit_spread_factor(_gaussian_cases(np.random.default_rng(int(true_factor * 10)), 400, true_factor),
+                              n_bootstrap=100)
+    assert again == fit  # deterministic (seeded bootstrap)
+
+
+def test_spread_advice_gives_the_plan_line_and_refuses_too_few_flights() -> None:
+    cases = _gaussian_cases(np.random.default_rng(9), 60, 0.8)
+    advice = spread_advice(cases, [1.25] * 60)
+    assert advice["fitted"] and advice["plan_table"] == "ensemble"
+    assert advice["plan_line"] == f"wind_spread_factor = {1.25 * advice['factor']:.2f}"
+    mixed = spread_advice(cases, [1.0] * 30 + [1.5] * 30)
+    assert mixed["plan_line"] is None and "multiply each by" in mixed["note"]
+    few = spread_advice(cases[:4], [1.0] * 4)
+    assert few["fitted"] is False
+    with pytest.raises(InputDataError, match="too few"):
+        fit_spread_factor(cases[:4])
+
+
+def test_wind_spread_factor_scales_the_wind_spread_and_keeps_the_mean(tmp_path: Path) -> None:
+    from balloonpath.forecast import run_forecast
+
+    # Vertical spreads off: the landing spread is then the wind's alone.
+    exact = RATES.replace("time_step_s = 20.0", "time_step_s = 20.0\nascent_sigma_fraction = 0.0\n"
+                          "burst_sigma_fraction = 0.0\ndescent_sigma_fraction = 0.0")
+    base = _plan(tmp_path, exact)
+    text = (tmp_path / "plan.toml").read_text(encoding="utf-8").replace(
+        "time_step_s = 20.0", "time_step_s = 20.0\nwind_spread_factor = 0.5")
+    (tmp_path / "half.toml").write_text(text, encoding="utf-8")
+    half = load_plan(tmp_path / "half.toml")
+    w1, w2 = load_winds(base), load_winds(half)
+    assert w2.info["spread_factor"] == 0.5 and w1.info["spread_factor"] == 1.0
+    pts = (np.array([LAT0, LAT0 + 0.3]), np.array([LON0, LON0 - 0.2]), np.array([3e3, 15e3]), np.array([T0, T0]))
+    assert np.allclose(w2.field.std(*pts)[0], 0.5 * w1.field.std(*pts)[0], rtol=1e-12)
+    r1 = run_forecast(base, members=80, winds=w1)
+    r2 = run_forecast(half, members=80, winds=w2)
+    # Member 0 flies the mean wind: identical. The members use the same normals, so their wind deviations
+    # are exactly halved; the landings respond almost linearly (spread ratio 0.5 within 5 %).
+    assert r1.landing.lat[0] == r2.landing.lat[0] and r1.landing.lon[0] == r2.landing.lon[0]
+
+    def spread(r) -> float:
+        d, _ = inverse(r.landing.lat[0], r.landing.lon[0], r.landing.lat[1:], r.landing.lon[1:])
+        return float(np.sqrt(np.mean(np.asarray(d) ** 2)))
+
+    ratio = spread(r2) / spread(r1)
+    assert ratio == pytest.approx(0.5, rel=0.05), ratio
+
+
+def test_cli_many_prints_the_spread_factor_and_plan_line(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """Five invented flights of one plan, flown tracks shifted from the nominal run by 0-8 km."""
+    import shutil
+
+    from balloonpath.cli import main
+
+    src = tmp_path / "src"
+    src.mkdir()
+    plan = _plan(src, RATES)
+    flown = _nominal_track(plan, load_winds(plan))
+    root = tmp_path / "season"
+    for k, (az, dist) in enumerate(((0.0, 0.0), (80.0, 2_000.0), (200.0, 4_000.0), (310.0, 6_000.0),
+                                    (20.0, 8_000.0))):
+        day = root / f"flight-{k}"
+        day.mkdir(parents=True)
+        shutil.copy(src / "plan.toml", day / "plan.toml")
+        shutil.copy(src / "sounding.csv", day / "sounding.csv")
+        lat, lon = forward(flown.lat, flown.lon, az, dist)
+        write_track_csv(dataclasses.replace(flown, lat=np.asarray(lat), lon=np.asarray(lon)), day / "flown.csv")
+    assert main(["verify", "--many", str(root), "--out", str(tmp_path / "out"), "--members", "25"]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert "5 flights" in text and "with the wind spread times" in text
+    assert "put in the plan's [ensemble] table: wind_spread_factor = " in text
+    spread = json.loads((tmp_path / "out" / "many.json").read_text())["aggregate"]["spread"]
+    assert spread["fitted"] and spread["flights"] == 5
+    assert spread["plan_line"] == f"wind_spread_factor = {spread['factor']:.2f}"

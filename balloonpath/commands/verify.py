@@ -42,6 +42,21 @@ def _print_many(console: Console, summary: object, out: Path) -> None:
     if agg["flights"] < 20:
         console.print(f"With {agg['flights']} flights a zone's coverage is uncertain by about +-"
                       f"{100 * (0.25 / agg['flights']) ** 0.5:.0f} points (binomial sd at 50 %).", style="yellow")
+    spread = agg.get("spread") or {}
+    if spread.get("fitted"):
+        lo, hi = spread["interval_5_95"]
+        es0, es1 = spread["mean_energy_score_m"] / 1e3, spread["mean_energy_score_fitted_m"] / 1e3
+        console.print(f"Spread: the zones would have scored best (mean energy score {es0:.2f} -> {es1:.2f} km)"
+                      f" with the wind spread times {spread['factor']:.2f} (5-95 %: {lo:.2f}-{hi:.2f}, "
+                      f"{spread['flights']} flights).")
+        if spread.get("plan_line"):
+            console.print(f"To use it, put in the plan's [ensemble] table:  {spread['plan_line']}", markup=False)
+        else:
+            console.print(spread.get("note", ""), markup=False)
+        if lo <= 1.0 <= hi:
+            console.print("The interval contains 1: these flights do not show the spread to be wrong.", style="yellow")
+    elif spread:
+        console.print(f"Spread factor not fitted: {spread['reason']}.", style="yellow")
     console.print(f"Table in {out / 'many.csv'} and {out / 'many.json'}; each flight in its own folder.")
 
 

@@ -210,6 +210,24 @@ class Posterior:
                 var[s : s + 2048] = np.maximum(s2[s : s + 2048] - red, 0.0)
         return mean, var
 
+    def covariance(self, xs: np.ndarray) -> np.ndarray:
+        """Posterior covariance (k, k) of one output between points xs (k, 4) (u and v alike), m^2/s^2.
+
+        exact: K** - V^T V, V = L^-1 K_X*; DTC: K** - Q** + K*Z A^-1 K_Z* ([RW2006] eq. 2.24 and §8.3.3),
+        with Q = K*Z K_ZZ^-1 K_Z*. Its diagonal is :meth:`mean_var`'s variance. Memory O(k^2 + n k).
+        """
+        ks = se_kernel(self.points, xs, self.hp)
+        cov = se_kernel(xs, xs, self.hp)
+        if not self.sparse:
+            v = solve_triangular(self.chol, ks, lower=True, check_finite=False)
+            cov -= v.T @ v
+        else:
+            v1 = solve_triangular(self.chol_zz, ks, lower=True, check_finite=False)
+            v2 = solve_triangular(self.chol_a, ks, lower=True, check_finite=False)
+            cov -= v1.T @ v1
+            cov += v2.T @ v2
+        return 0.5 * (cov + cov.T)
+
     def mean_on_grid(self, grid: CorridorGrid) -> np.ndarray:
         """Exact posterior mean at every grid node, shape (G, 2), using the kernel's separability.
 
@@ -315,7 +333,12 @@ class GPWindField:
         Region of the sample grids (set at fit time; change with :meth:`with_corridor`).
     info : dict
         Fit summary for ``summary.json["winds"]["gp"]``.
+    spread_factor : float
+        Multiplies the posterior standard deviation and every sampled deviation from the mean (1: the
+        model's own uncertainty; set with :meth:`with_spread_factor`, e.g. from ``verify --many``).
     """
+
+    spread_factor: float = 1.0
 
     def __init__(
         self,
@@ -357,17 +380,45 @@ class GPWindField:
         shape = np.broadcast(np.asarray(lat), np.asarray(lon), np.asarray(alt_m), np.asarray(time_s)).shape
         if self.posterior is None:
             z_km = np.broadcast_to(np.asarray(alt_m, dtype=float), shape) / 1e3
-            s = self.hyperparameters.sigma_m_s * self.hyperparameters.g(z_km)
+            s = self.hyperparameters.sigma_m_s * self.hyperparameters.g(z_km) * self.spread_factor
             return s, s.copy()
         _, var = self.posterior.mean_var(self._local(lat, lon, alt_m, time_s))
-        s = np.sqrt(var).reshape(shape)
+        s = np.sqrt(var).reshape(shape) * self.spread_factor
         return s, s.copy()
+
+    def covariance(self, lat, lon, alt_m, time_s) -> np.ndarray:
+        """Posterior covariance (k, k) of one wind component (u and v alike) between k points, m^2/s^2.
+
+        Includes :attr:`spread_factor` (squared); its diagonal is :meth:`std` squared. Used to compute the
+        predicted error of a quantity that integrates the wind along a path (e.g. a balloon's drift through
+        a layer: w^T C w with w the time steps), as in ``benchmarks/skill_layers.py``.
+        """
+        xs = self._local(np.ravel(lat), np.ravel(lon), np.ravel(alt_m), np.ravel(time_s))
+        if self.posterior is None:
+            cov = se_kernel(xs, xs, self.hyperparameters)
+        else:
+            cov = self.posterior.covariance(xs)
+        return cov * self.spread_factor**2
 
     def coverage(self) -> Coverage:
         """The background's coverage."""
         return self.background.coverage()
 
     # -- corridor and samples
+    def with_spread_factor(self, factor: float) -> GPWindField:
+        """The same field with its uncertainty scaled: sd and sampled deviations times ``factor`` (> 0).
+
+        A calibration of the spread learned from verified flights (``balloonpath verify --many``,
+        :func:`balloonpath.verify.fit_spread_factor`); the mean wind is unchanged.
+        """
+        factor = float(factor)
+        if not (np.isfinite(factor) and factor > 0.0):
+            raise ValueError(f"spread factor must be finite and > 0, got {factor}")
+        out = self.__class__.__new__(self.__class__)
+        out.__dict__.update(self.__dict__)
+        out.spread_factor = factor
+        return out
+
     def with_corridor(
         self,
         lat_min: float,
@@ -441,7 +492,8 @@ class GPWindField:
         hp = self.hyperparameters
         sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use, hp.profile)
         mean = self.posterior.mean_on_grid(grid) if self.posterior is not None else np.zeros((grid.size, 2))
-        return MemberSampler(self.background, self._fast_projection(), self.corridor.time_ref_s, sampler, mean)
+        return MemberSampler(self.background, self._fast_projection(), self.corridor.time_ref_s, sampler, mean,
+                             self.spread_factor)
 
     def sample_members(
         self, member_ids: np.ndarray, seed: int, n_total: int | None = None,
@@ -498,7 +550,8 @@ class GPWindField:
             self.projection, float(lat_c.min()) - 0.2, float(lat_c.max()) + 0.2, float(np.abs(dlon).max()) + 0.2
         )
         return GridMemberWinds(
-            self.background, fast, self.corridor.time_ref_s, grid, hp.lengths(), mean, dev, profile=hp.profile
+            self.background, fast, self.corridor.time_ref_s, grid, hp.lengths(), mean, dev, profile=hp.profile,
+            spread_factor=self.spread_factor,
         )
 
     # -- persistence

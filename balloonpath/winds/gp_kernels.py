@@ -183,8 +183,11 @@ def se_kernel(a: np.ndarray, b: np.ndarray, hp: GPHyperparameters) -> np.ndarray
     a = np.asarray(a, dtype=float)
     b = np.asarray(b, dtype=float)
     ell = hp.lengths()
-    sa = a / ell
-    sb = b / ell
+    # Distances are translation invariant: centring on a's mean before the expansion |a|^2 + |b|^2 - 2 a.b
+    # avoids the cancellation that coordinates far from the origin (e.g. hours since 1970) would cause.
+    off = a.mean(axis=0) if a.shape[0] else 0.0
+    sa = (a - off) / ell
+    sb = (b - off) / ell
     r2 = (
         np.sum(sa**2, axis=1)[:, None] + np.sum(sb**2, axis=1)[None, :] - 2.0 * sa @ sb.T
     )

@@ -389,12 +389,15 @@ class GridMemberWinds:
         deviations: np.ndarray,
         member_ids: np.ndarray | None = None,
         profile: str = "uniform",
+        spread_factor: float = 1.0,
     ) -> None:
         """``member_ids`` (optional, distinct, >= 0): the member number of each row of ``deviations``
         (a chunk of a larger ensemble); default rows 0..N-1. ``profile``: altitude profile that scales the
-        deviations at the evaluation point."""
+        deviations at the evaluation point. ``spread_factor``: multiplies every deviation (a calibration of
+        the spread, ``[ensemble] wind_spread_factor``); the mean is unchanged."""
         self.background = background
         self.profile = profile
+        self.spread_factor = float(spread_factor)
         self.projection = projection
         self.time_ref_s = float(time_ref_s)
         self.grid = grid
@@ -442,6 +445,8 @@ class GridMemberWinds:
         dev = np.matmul(w3, np.take(self._flat, idx + (members * self._size)[:, None], axis=0))[:, 0, :]
         if self.profile != "uniform":
             c = c * altitude_profile(pts[:, 2], self.profile)
+        if self.spread_factor != 1.0:
+            c = c * self.spread_factor
         out = mean + c[:, None] * dev
         return out[:, 0], out[:, 1]
 
@@ -485,7 +490,9 @@ class MemberSampler:
         time_ref_s: float,
         sampler: GridSampler,
         mean_nodes: np.ndarray,
+        spread_factor: float = 1.0,
     ) -> None:
+        self.spread_factor = float(spread_factor)
         self.background = background
         self.projection = projection
         self.time_ref_s = float(time_ref_s)
@@ -524,5 +531,5 @@ class MemberSampler:
             dev[want, :, 1] = fields[b + pos]
         return GridMemberWinds(
             self.background, self.projection, self.time_ref_s, self.grid, self.sampler.lengths,
-            self.mean_nodes, dev, member_ids=ids, profile=self.sampler.profile,
+            self.mean_nodes, dev, member_ids=ids, profile=self.sampler.profile, spread_factor=self.spread_factor,
         )
