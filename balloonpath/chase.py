@@ -581,8 +581,8 @@ def condition_field(field: Any, preflight: WindObservations, telemetry: WindObse
             background_spec=getattr(field, "background_spec", None),
         )
     new.info = dict(new.info, telemetry_observations=len(telemetry), preflight_observations=len(preflight))
-    factor = float(getattr(field, "spread_factor", 1.0))
-    return new.with_spread_factor(factor) if factor != 1.0 else new
+    factor, nu = float(getattr(field, "spread_factor", 1.0)), getattr(field, "spread_tail_dof", None)
+    return new.with_spread_factor(factor, nu) if (factor != 1.0 or nu is not None) else new
 
 
 # ---------------------------------------------------------------------------------------- re-prediction

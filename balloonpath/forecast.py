@@ -124,15 +124,18 @@ def load_winds(plan: Plan, log: WarningLog | None = None) -> LoadedWinds:
 
 
 def _calibrated(field: WindField, plan: Plan, info: dict[str, Any]) -> WindField:
-    """The field with the plan's ``[ensemble] wind_spread_factor`` applied (recorded in ``info``)."""
+    """The field with the plan's spread calibration applied (``[ensemble] wind_spread_factor`` and
+    ``wind_spread_tail_dof``; recorded in ``info``)."""
     factor = float(plan.ensemble.wind_spread_factor)
+    nu = plan.ensemble.wind_spread_tail_dof
     info["spread_factor"] = factor
-    if factor == 1.0:
+    info["spread_tail_dof"] = nu
+    if factor == 1.0 and nu is None:
         return field
     if not hasattr(field, "with_spread_factor"):
         raise input_error(plan.path, "[ensemble] wind_spread_factor",
                           "this wind field has no uncertainty model to scale", "remove the key")
-    return field.with_spread_factor(factor)
+    return field.with_spread_factor(factor, nu)
 
 
 def _background_of(plan: Plan, info: dict[str, Any], atmosphere_holder: list) -> tuple[WindField, None]:

@@ -161,7 +161,11 @@ class EnsembleSpec:
     wind_uncertainty: bool = key(True, doc="draw wind realisations from the field's uncertainty model")
     wind_spread_factor: float = key(
         1.0, low=0.1, high=10.0,
-        doc="multiplies the wind realisations' spread about the mean (a calibration: `verify --many`)",
+        doc="scale of the wind realisations' spread about the mean (a calibration: `verify --many`)",
+    )
+    wind_spread_tail_dof: float | None = key(
+        None, low=2.5, high=1000.0,
+        doc="Student-t degrees of freedom of the wind spread (heavier tails; `verify --many`); empty: Gaussian",
     )
     time_step_s: float = key(10.0, low=0.5, high=120.0, doc="integration step, s")
 

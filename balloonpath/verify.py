@@ -25,6 +25,9 @@ References
 [GneitingRaftery2007] T. Gneiting and A. E. Raftery, "Strictly proper scoring rules, prediction, and
     estimation", J. Amer. Statist. Assoc. 102(477):359-378 (2007): the CRPS in kernel form, the
     closed form for a normal forecast and the energy score (from memory).
+[KotzNadarajah2004] S. Kotz and S. Nadarajah, Multivariate t Distributions and Their Applications, Cambridge
+    University Press 2004: for a p-variate t with nu degrees of freedom, the squared Mahalanobis distance
+    over p is F(p, nu) distributed (from memory).
 [Gneiting2005] T. Gneiting, A. E. Raftery, A. H. Westveld and T. Goldman, "Calibrated probabilistic
     forecasting using ensemble model output statistics and minimum CRPS estimation", Mon. Wea. Rev.
     133:1098-1118 (2005): spread parameters fitted by minimising a proper score over past cases (from memory).
@@ -154,87 +157,120 @@ def mean_pairwise_distance(points: np.ndarray, chunk: int = 1024) -> float:
 
 
 # ------------------------------------------------------------------------------ spread calibration
-#: Fewer verified flights than this: no spread factor is fitted.
+#: Fewer verified flights than this: no spread is fitted.
 MIN_FLIGHTS_FOR_SPREAD = 5
-#: Allowed range of the fitted factor (the plan key's bounds).
+#: Allowed range of the fitted scale (the plan key's bounds).
 SPREAD_FACTOR_BOUNDS = (0.1, 10.0)
+#: Degrees of freedom searched for the tails (log-spaced grid); at the top end the fit is called Gaussian.
+TAIL_DOF_GRID = np.geomspace(2.5, 1000.0, 61)
+#: A fitted nu at or above this is reported as Gaussian (no tail key in the plan lines).
+TAIL_DOF_GAUSSIAN = 200.0
 
 
-@dataclass(frozen=True)
-class SpreadTerms:
-    """What the energy score of one flight's scaled ensemble needs (:func:`scaled_energy_score`).
+def spread_negative_log_likelihood(d2: np.ndarray, scale: float, tail_dof: float | None) -> float:
+    """-log likelihood of squared Mahalanobis distances under a scaled bivariate normal or Student-t.
 
-    ``deviations`` (N, 2): members minus the ensemble mean; ``residual`` (2,): the flown landing minus the
-    mean; ``pair_mean``: the mean pairwise distance of the members (all in metres, local plane).
+    Parameters
+    ----------
+    d2 : array_like
+        Squared Mahalanobis distances of the flown landings from their ensembles (ensemble mean and
+        covariance, :func:`mahalanobis_d2`).
+    scale : float
+        c: the landing error is distributed as c times the ensemble's spread.
+    tail_dof : float or None
+        nu of a bivariate Student-t with scale matrix c^2 S; None: normal with covariance c^2 S.
+
+    Returns
+    -------
+    float
+        -sum log f(d2_i), with f the density of d2: normal: exp(-q / (2 c^2)) / (2 c^2) (chi-square with 2
+        degrees of freedom, scaled); Student-t: (1 + q / (nu c^2))^(-nu/2 - 1) / (2 c^2) (q / (2 c^2) is
+        F(2, nu) distributed) [KotzNadarajah2004] (from memory; checked against scipy.stats.f in the tests).
     """
-
-    deviations: np.ndarray
-    residual: np.ndarray
-    pair_mean: float
-
-    @staticmethod
-    def of(members_xy: np.ndarray, observation_xy: np.ndarray) -> SpreadTerms:
-        """Terms of an ensemble of points and the observed point."""
-        x = np.atleast_2d(np.asarray(members_xy, dtype=float))
-        x = x[np.all(np.isfinite(x), axis=1)]
-        if x.shape[0] < 2:
-            raise input_error(None, "members", f"{x.shape[0]} finite points", "run the forecast with more members")
-        m = x.mean(axis=0)
-        return SpreadTerms(x - m, np.asarray(observation_xy, dtype=float).ravel() - m, mean_pairwise_distance(x))
+    q = np.asarray(d2, dtype=float)
+    c2 = float(scale) ** 2
+    if tail_dof is None:
+        return float(np.sum(np.log(2.0 * c2) + q / (2.0 * c2)))
+    nu = float(tail_dof)
+    return float(np.sum(np.log(2.0 * c2) + (0.5 * nu + 1.0) * np.log1p(q / (nu * c2))))
 
 
-def scaled_energy_score(terms: SpreadTerms, factor: float) -> float:
-    """Energy score of the ensemble whose deviations from its mean are multiplied by ``factor``.
+def spread_radius2(probability: float, scale: float, tail_dof: float | None) -> float:
+    """Squared Mahalanobis radius holding ``probability`` of the scaled normal / Student-t of
+    :func:`spread_negative_log_likelihood`: c^2 chi2_2^-1(p) = -2 c^2 ln(1 - p), or nu c^2 ((1 - p)^(-2/nu) - 1)."""
+    p, c2 = float(probability), float(scale) ** 2
+    if tail_dof is None:
+        return -2.0 * c2 * math.log1p(-p)
+    nu = float(tail_dof)
+    return nu * c2 * ((1.0 - p) ** (-2.0 / nu) - 1.0)
 
-    ES(c) = (1/N) sum_i ||c d_i - r|| - (c / 2) (1/N^2) sum_ij ||d_i - d_j|| with d the deviations and r the
-    observation minus the mean ([GneitingRaftery2007], beta = 1): the pairwise term is linear in c and the
-    first is convex, so ES(c) is convex in c. ``factor`` = 1 gives :func:`energy_score`.
-    """
-    c = float(factor)
-    return float(np.mean(np.linalg.norm(c * terms.deviations - terms.residual, axis=1)) - 0.5 * c * terms.pair_mean)
+
+def _best_scale(q: np.ndarray, nu: float | None) -> tuple[float, float]:
+    from scipy.optimize import minimize_scalar
+
+    if nu is None:  # closed form: c^2 = mean(q) / 2
+        c = float(np.clip(math.sqrt(max(float(np.mean(q)), 1e-300) / 2.0), *SPREAD_FACTOR_BOUNDS))
+        return c, spread_negative_log_likelihood(q, c, None)
+    lo, hi = (math.log(b) for b in SPREAD_FACTOR_BOUNDS)
+    res = minimize_scalar(lambda lc: spread_negative_log_likelihood(q, math.exp(lc), nu), bounds=(lo, hi),
+                          method="bounded", options={"xatol": 1e-5})
+    return float(math.exp(res.x)), float(res.fun)
+
+
+def _fit(q: np.ndarray) -> tuple[float, float | None]:
+    """(scale, nu or None) maximising the likelihood: profile over the nu grid and the normal limit."""
+    best_c, best_f = _best_scale(q, None)
+    best_nu: float | None = None
+    for nu in TAIL_DOF_GRID:
+        c, f = _best_scale(q, float(nu))
+        if f < best_f - 1e-9:
+            best_c, best_f, best_nu = c, f, float(nu)
+    if best_nu is not None and best_nu >= TAIL_DOF_GAUSSIAN:
+        best_c, best_nu = _best_scale(q, None)[0], None
+    return best_c, best_nu
 
 
 @dataclass(frozen=True)
 class SpreadFit:
-    """The spread factor that minimises the mean energy score over verified flights.
+    """Scale and tails of the landing error relative to the ensemble's spread, fitted over flights.
 
-    ``factor`` multiplies the spread the flights were forecast with; ``interval`` is its 5-95 % bootstrap
-    interval over flights; ``energy_score_m`` / ``energy_score_fitted_m`` the mean energy score at factor 1
-    and at ``factor``.
+    ``scale`` c and ``tail_dof`` nu (None: normal) are maximum-likelihood estimates; the intervals are 5-95 %
+    bootstrap intervals over flights (``tail_dof_interval`` upper end ``inf`` when resamples called it
+    normal). ``coverage`` is the share of flights inside each zone as forecast, ``coverage_fitted`` with the
+    fitted radii (in sample).
     """
 
-    factor: float
-    interval: tuple[float, float]
+    scale: float
+    scale_interval: tuple[float, float]
+    tail_dof: float | None
+    tail_dof_interval: tuple[float, float]
     flights: int
-    energy_score_m: float
-    energy_score_fitted_m: float
+    coverage: dict[str, float]
+    coverage_fitted: dict[str, float]
     bootstrap: int
 
     def as_dict(self) -> dict[str, Any]:
-        """Plain dict (JSON)."""
-        return {"factor": self.factor, "interval_5_95": list(self.interval), "flights": self.flights,
-                "mean_energy_score_m": self.energy_score_m, "mean_energy_score_fitted_m": self.energy_score_fitted_m,
-                "bootstrap_resamples": self.bootstrap, "method": "minimum mean energy score [GneitingRaftery2007]"}
+        """Plain dict (JSON; an infinite bound as null)."""
+        def fin(x: float) -> float | None:
+            return x if math.isfinite(x) else None
+
+        return {"scale": self.scale, "scale_interval_5_95": list(self.scale_interval), "tail_dof": self.tail_dof,
+                "tail_dof_interval_5_95": [fin(x) for x in self.tail_dof_interval], "flights": self.flights,
+                "coverage": self.coverage, "coverage_fitted": self.coverage_fitted,
+                "bootstrap_resamples": self.bootstrap,
+                "method": "maximum likelihood, bivariate normal or Student-t scale mixture of the ensemble spread"}
 
 
-def _best_factor(terms: list[SpreadTerms]) -> float:
-    from scipy.optimize import minimize_scalar
-
-    lo, hi = np.log(SPREAD_FACTOR_BOUNDS[0]), np.log(SPREAD_FACTOR_BOUNDS[1])
-    res = minimize_scalar(lambda lc: sum(scaled_energy_score(t, math.exp(lc)) for t in terms),
-                          bounds=(lo, hi), method="bounded", options={"xatol": 1e-4})
-    return float(math.exp(res.x))
-
-
-def fit_spread_factor(terms: list[SpreadTerms], n_bootstrap: int = 200, seed: int = 0) -> SpreadFit:
-    """Fit one factor on the spread of every flight's ensemble by minimum mean energy score.
+def fit_spread(d2: np.ndarray, n_bootstrap: int = 200, seed: int = 0) -> SpreadFit:
+    """Fit the scale and tails of the flown landings' distances from their ensembles.
 
     Parameters
     ----------
-    terms : list of SpreadTerms
-        One per verified flight (:meth:`SpreadTerms.of` of its landing points and the flown landing).
+    d2 : array_like
+        One squared Mahalanobis distance per verified flight (:func:`mahalanobis_d2`), relative to the
+        ensemble's own (uncalibrated) spread.
     n_bootstrap : int
-        Resamples of the flights for the 5-95 % interval (seeded: the result is deterministic).
+        Resamples of the flights for the intervals (seeded: deterministic).
     seed : int
         Seed of the resampling.
 
@@ -244,27 +280,57 @@ def fit_spread_factor(terms: list[SpreadTerms], n_bootstrap: int = 200, seed: in
 
     Notes
     -----
-    Minimum-score estimation of a spread parameter, as in ensemble model output statistics (EMOS,
-    [Gneiting2005], which minimises the CRPS); here the energy score of the 2-D landing point, a strictly
-    proper score ([GneitingRaftery2007]), so in expectation the minimum is at the factor that makes the
-    scaled ensemble match the distribution of the flown landings. Scaling the landing deviations
-    approximates scaling the wind deviations (``[ensemble] wind_spread_factor``): landings respond
-    almost linearly to small wind changes (checked in tests/test_verify.py). The factor is one number for
-    all flights; it corrects the size of the zones, not their shape or a bias of the mean.
+    Model: the flown landing minus the ensemble mean is bivariate normal with covariance c^2 S, or Student-t
+    with scale c^2 S and nu degrees of freedom (a normal whose variance varies from flight to flight, as
+    when the forecast error of the day is uncertain), S the ensemble covariance. Maximum likelihood on the
+    squared distances (:func:`spread_negative_log_likelihood`): closed form for the normal, profile over a
+    log grid of nu (2.5-1000, 61 values) with a bounded 1-D search of c for the Student-t; nu >= 200 is
+    reported as normal. This is the distributional calibration of ensemble output by scoring past cases,
+    as in [Gneiting2005] (which fits a normal spread by minimum CRPS); a scale alone cannot fix zones whose
+    core is too wide while their tails are right, which the tails parameter can. Apply with ``[ensemble]
+    wind_spread_factor = c`` and ``wind_spread_tail_dof = nu`` (:func:`spread_advice`).
     """
-    if len(terms) < MIN_FLIGHTS_FOR_SPREAD:
-        raise input_error(None, "flights", f"{len(terms)} verified flights are too few to fit a spread factor",
+    q = np.asarray(d2, dtype=float)
+    q = q[np.isfinite(q)]
+    if q.size < MIN_FLIGHTS_FOR_SPREAD:
+        raise input_error(None, "flights", f"{q.size} verified flights are too few to fit the spread",
                           f"verify at least {MIN_FLIGHTS_FOR_SPREAD} flights")
-    best = _best_factor(terms)
+    c, nu = _fit(q)
     rng = np.random.default_rng(seed)
-    boots = [_best_factor([terms[i] for i in rng.integers(0, len(terms), len(terms))]) for _ in range(n_bootstrap)]
-    lo, hi = (np.quantile(boots, [0.05, 0.95]) if boots else (best, best))
+    cs, nus = [], []
+    for _ in range(n_bootstrap):
+        cb, nub = _fit(q[rng.integers(0, q.size, q.size)])
+        cs.append(cb)
+        nus.append(math.inf if nub is None else nub)
+    keys = [f"{p:.2f}" for p in ZONE_PROBABILITIES]
     return SpreadFit(
-        factor=best, interval=(float(lo), float(hi)), flights=len(terms),
-        energy_score_m=float(np.mean([scaled_energy_score(t, 1.0) for t in terms])),
-        energy_score_fitted_m=float(np.mean([scaled_energy_score(t, best) for t in terms])),
+        scale=c, scale_interval=tuple(float(v) for v in np.quantile(cs, [0.05, 0.95])) if cs else (c, c),
+        tail_dof=nu,
+        tail_dof_interval=(tuple(float(v) for v in np.quantile(nus, [0.05, 0.95], method="inverted_cdf"))
+                           if nus else (math.inf, math.inf)),
+        flights=int(q.size),
+        coverage={k: float(np.mean(q <= spread_radius2(p, 1.0, None))) for k, p in zip(keys, ZONE_PROBABILITIES,
+                                                                                        strict=True)},
+        coverage_fitted={k: float(np.mean(q <= spread_radius2(p, c, nu))) for k, p in zip(keys, ZONE_PROBABILITIES,
+                                                                                           strict=True)},
         bootstrap=int(n_bootstrap),
     )
+
+
+def mahalanobis_d2(members_xy: np.ndarray, observation_xy: np.ndarray) -> float:
+    """Squared Mahalanobis distance of a point from an ensemble of points (mean and covariance, N - 1).
+
+    The covariance is regularised as in :func:`mahalanobis_rank`.
+    """
+    x = np.atleast_2d(np.asarray(members_xy, dtype=float))
+    x = x[np.all(np.isfinite(x), axis=1)]
+    if x.shape[0] < 3:
+        raise input_error(None, "members", f"{x.shape[0]} points are too few for a distance",
+                          "run the forecast with more members")
+    d = np.asarray(observation_xy, dtype=float).ravel() - x.mean(axis=0)
+    s = np.cov(x, rowvar=False, ddof=1)
+    s = s + (1e-9 * np.trace(s) + 1.0) * np.eye(s.shape[0])
+    return float(d @ np.linalg.solve(s, d))
 
 
 def mahalanobis_rank(members_xy: np.ndarray, observation_xy: np.ndarray) -> float:
@@ -671,6 +737,7 @@ class Verification:
     error_distance_m: np.ndarray
     inside: dict[float, bool]
     rank: float
+    mahalanobis_d2: float
     energy_score_m: float
     crps_distance_m: float
     calibration: Calibration | None
@@ -723,6 +790,7 @@ class Verification:
             "track_error": {"minutes": arr(self.error_minutes, 2), "distance_m": arr(self.error_distance_m, 1)},
             "ensemble": {"inside_zone": {f"{p:.2f}": v for p, v in self.inside.items()},
                          "rank": r(self.rank, 4),
+                         "mahalanobis_d2": r(self.mahalanobis_d2, 4),
                          "energy_score_m": r(self.energy_score_m, 1),
                          "crps_distance_m": r(self.crps_distance_m, 1),
                          "scores_reference": "GneitingRaftery2007"},
@@ -820,6 +888,7 @@ def verify_flight(plan: Any, flown: FlownTrack, members: int | None = None, seed
         inside = inside_ellipses(zones.ellipses, float(tx), float(ty))
         pts = np.column_stack([zones.landing_x_m, zones.landing_y_m])
         rank = mahalanobis_rank(pts, [float(tx), float(ty)]) if pts.shape[0] >= 3 else float("nan")
+        d2 = mahalanobis_d2(pts, [float(tx), float(ty)]) if pts.shape[0] >= 3 else float("nan")
         es = energy_score(pts, [float(tx), float(ty)])
         rows = np.arange(1, result.n_members) if result.n_members > 1 else np.arange(1)
         d_members, _ = inverse(result.launch_lat, result.launch_lon, result.landing.lat[rows],
@@ -845,7 +914,7 @@ def verify_flight(plan: Any, flown: FlownTrack, members: int | None = None, seed
             burst_position_error_m=float(burst_pos),
             band_edges_m=edges, ascent_speed_forecast_m_s=asc_fc, ascent_speed_flown_m_s=asc_fl,
             descent_speed_forecast_m_s=des_fc, descent_speed_flown_m_s=des_fl,
-            error_minutes=minutes, error_distance_m=err, inside=inside, rank=rank,
+            error_minutes=minutes, error_distance_m=err, inside=inside, rank=rank, mahalanobis_d2=d2,
             energy_score_m=es, crps_distance_m=crps, calibration=cal,
         )
     return dataclasses.replace(ver, warnings=tuple(log.messages)), result, zones
@@ -1031,28 +1100,27 @@ def verify_many(folder: str | Path, out_dir: str | Path, members: int | None = N
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     rows: list[dict[str, Any]] = []
-    terms: list[SpreadTerms] = []
-    factors: list[float] = []
+    d2: list[float] = []
+    calibrations: list[tuple[float, float | None]] = []
     cases = find_flights(folder)
     for k, case in enumerate(cases):
         plan = load_plan(case.plan_path)
         flown = read_flown_track(case.track_path)
         ver, result, zones = verify_flight(plan, flown, members=members, seed=seed)
         write_verification(ver, result, zones, flown, out / case.name, plot=plot)
-        if result.n_members > 2:
-            tx, ty = zones.projection().to_local(*ver.flown_landing)
-            terms.append(SpreadTerms.of(np.column_stack([zones.landing_x_m, zones.landing_y_m]),
-                                        [float(tx), float(ty)]))
-            factors.append(float(plan.ensemble.wind_spread_factor))
+        if math.isfinite(ver.mahalanobis_d2):
+            d2.append(ver.mahalanobis_d2)
+            calibrations.append((float(plan.ensemble.wind_spread_factor), plan.ensemble.wind_spread_tail_dof))
         rows.append({"flight": case.name, "landing_error_m": ver.landing_error_m,
                      "landing_error_bearing_deg": ver.landing_error_bearing_deg,
                      "burst_altitude_error_m": ver.burst_altitude_error_m,
                      "inside": {f"{p:.2f}": v for p, v in ver.inside.items()}, "rank": ver.rank,
+                     "mahalanobis_d2": ver.mahalanobis_d2,
                      "energy_score_m": ver.energy_score_m, "crps_distance_m": ver.crps_distance_m})
         if progress is not None:
             progress(k + 1, len(cases))
     agg = pool_scores(rows)
-    agg["spread"] = spread_advice(terms, factors)
+    agg["spread"] = spread_advice(d2, calibrations)
     head = ["flight", "landing_error_km", "bearing_deg", "burst_altitude_error_m", "in_50", "in_90", "in_95",
             "rank", "energy_score_km", "crps_distance_km"]
     lines = [",".join(head)]
@@ -1070,28 +1138,25 @@ def verify_many(folder: str | Path, out_dir: str | Path, members: int | None = N
     return ManySummary(tuple(rows), agg)
 
 
-def spread_advice(terms: list[SpreadTerms], factors: list[float]) -> dict[str, Any]:
-    """The fitted spread factor and the plan line it suggests (``{"fitted": False, "reason": ...}`` if none).
+def spread_advice(d2: list[float], calibrations: list[tuple[float, float | None]]) -> dict[str, Any]:
+    """The fitted spread and the plan lines it suggests (``{"fitted": False, "reason": ...}`` if none).
 
-    ``factors`` are the ``[ensemble] wind_spread_factor`` values the flights were forecast with: the fit
-    multiplies them, so the suggested value is their common value times the fitted factor (when the flights
-    used different values, only the relative factor is given).
+    ``d2`` are the flights' squared Mahalanobis distances from their ensembles as forecast; ``calibrations``
+    the (``wind_spread_factor``, ``wind_spread_tail_dof``) each flight was forecast with. Distances from an
+    already calibrated ensemble are brought back to the uncalibrated spread by the ensemble's variance
+    factor c0^2 (normal) or c0^2 nu0 / (nu0 - 2) (Student-t), an approximation (landings respond almost
+    linearly to the winds) that makes the suggested values absolute, not relative.
     """
-    if len(terms) < MIN_FLIGHTS_FOR_SPREAD:
-        return {"fitted": False, "reason": f"{len(terms)} flights with an ensemble; at least "
-                f"{MIN_FLIGHTS_FOR_SPREAD} are needed to fit a spread factor"}
-    fit = fit_spread_factor(terms)
-    out = {"fitted": True, **fit.as_dict()}
-    if len(set(factors)) == 1:
-        value = factors[0] * fit.factor
-        value = min(max(value, SPREAD_FACTOR_BOUNDS[0]), SPREAD_FACTOR_BOUNDS[1])
-        out["plan_line"] = f"wind_spread_factor = {value:.2f}"
-        out["plan_table"] = "ensemble"
-    else:
-        out["plan_line"] = None
-        out["note"] = ("the flights used different [ensemble] wind_spread_factor values; multiply each by "
-                       f"{fit.factor:.2f}")
-    return out
+    if len(d2) < MIN_FLIGHTS_FOR_SPREAD:
+        return {"fitted": False, "reason": f"{len(d2)} flights with an ensemble; at least "
+                f"{MIN_FLIGHTS_FOR_SPREAD} are needed to fit the spread"}
+    var = [c0**2 * (1.0 if nu0 is None else nu0 / (nu0 - 2.0)) for c0, nu0 in calibrations]
+    fit = fit_spread(np.asarray(d2, dtype=float) * np.asarray(var))
+    lines = [f"wind_spread_factor = {min(max(fit.scale, SPREAD_FACTOR_BOUNDS[0]), SPREAD_FACTOR_BOUNDS[1]):.2f}"]
+    if fit.tail_dof is not None:
+        lines.append(f"wind_spread_tail_dof = {fit.tail_dof:.1f}")
+    return {"fitted": True, **fit.as_dict(), "plan_table": "ensemble", "plan_lines": lines,
+            "already_calibrated": any(c != (1.0, None) for c in calibrations)}
 
 
 def _cell(value: float, decimals: int) -> str:
@@ -1111,11 +1176,11 @@ def _jsonable(obj: Any) -> Any:
 
 
 __all__ = [
-    "Calibration", "FlightCase", "FlightEvents", "ManySummary", "RateFit", "SpreadFit", "SpreadTerms",
-    "Verification", "ascent_rate_from_track", "band_speeds", "calibrate", "crps_ensemble", "crps_gaussian",
-    "energy_score", "find_flights", "fit_spread_factor", "flight_events", "inside_ellipses",
-    "launch_time_from_track", "mahalanobis_rank", "mean_pairwise_distance", "parachute_drag_coefficient",
-    "plot_verification", "pool_scores", "read_flown_track", "scaled_energy_score",
-    "sea_level_descent_rate_from_track", "spread_advice", "summary_lines", "track_error_vs_time",
+    "Calibration", "FlightCase", "FlightEvents", "ManySummary", "RateFit", "SpreadFit", "Verification",
+    "ascent_rate_from_track", "band_speeds", "calibrate", "crps_ensemble", "crps_gaussian", "energy_score",
+    "find_flights", "fit_spread", "flight_events", "inside_ellipses", "launch_time_from_track",
+    "mahalanobis_d2", "mahalanobis_rank", "mean_pairwise_distance", "parachute_drag_coefficient",
+    "plot_verification", "pool_scores", "read_flown_track", "sea_level_descent_rate_from_track",
+    "spread_advice", "spread_negative_log_likelihood", "spread_radius2", "summary_lines", "track_error_vs_time",
     "verify_flight", "verify_many", "write_track_csv", "write_verification",
 ]

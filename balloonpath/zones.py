@@ -157,7 +157,7 @@ def _mean_cov(x: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return mean, np.cov(pts, rowvar=False, ddof=1)
 
 
-def ellipse_from_points(x_m: np.ndarray, y_m: np.ndarray, probability: float) -> Ellipse:
+def ellipse_from_points(x_m: np.ndarray, y_m: np.ndarray, probability: float, radius: str = "normal") -> Ellipse:
     """Probability ellipse of points in a local plane from their sample mean and covariance.
 
     Parameters
@@ -165,7 +165,13 @@ def ellipse_from_points(x_m: np.ndarray, y_m: np.ndarray, probability: float) ->
     x_m, y_m : array_like, shape (N,)
         East and north coordinates, m. Non-finite points are ignored.
     probability : float
-        Probability of the fitted bivariate normal inside the ellipse.
+        Probability of the fitted bivariate normal inside the ellipse (``radius="normal"``), or the fraction
+        of the points inside it (``radius="empirical"``).
+    radius : {"normal", "empirical"}
+        Mahalanobis radius k of the ellipse: ``"normal"`` k = :func:`chi2_scale` (the points are taken as
+        a bivariate normal sample); ``"empirical"`` k^2 = the ``probability`` quantile of the points' own
+        squared Mahalanobis distances (numpy's linear interpolation), for clouds that are not normal (the
+        Student-t members of a calibrated spread, ``[ensemble] wind_spread_tail_dof``).
 
     Returns
     -------
@@ -173,7 +179,7 @@ def ellipse_from_points(x_m: np.ndarray, y_m: np.ndarray, probability: float) ->
 
     Notes
     -----
-    With S the sample covariance (divisor N - 1), eigenvalues l1 >= l2 and k = :func:`chi2_scale`,
+    With S the sample covariance (divisor N - 1), eigenvalues l1 >= l2 and k as above,
     the semi-axes are k sqrt(l1) and k sqrt(l2) along the eigenvectors ([Wang2015]). This is the
     ellipse of the fitted distribution, not a prediction region for one more member: for N members
     the prediction factor is larger by about (1 + 1/N)^(1/2) (under 0.1 % for N = 500). Fewer than 3
@@ -218,6 +224,13 @@ def ellipse_from_points(x_m: np.ndarray, y_m: np.ndarray, probability: float) ->
             stacklevel=2,
         )
         evals[0] = 0.0
+    if radius == "empirical" and evals[0] > 0.0:
+        d = np.column_stack([x, y]) - mean
+        proj = d @ evecs  # coordinates along the eigenvectors
+        d2 = proj[:, 0] ** 2 / evals[0] + proj[:, 1] ** 2 / evals[1]
+        k = math.sqrt(float(np.quantile(d2, probability)))
+    elif radius not in ("normal", "empirical"):
+        raise ValueError(f"unknown ellipse radius {radius!r}; choose 'normal' or 'empirical'")
     ex, ny = evecs[0, 1], evecs[1, 1]
     azimuth = math.degrees(math.atan2(ex, ny)) % 180.0
     if azimuth >= 180.0 - 1e-9:
@@ -798,6 +811,7 @@ def _ellipse_set(
     probabilities: tuple[float, ...],
     what: str,
     n_vertices: int = 72,
+    radius: str = "normal",
 ) -> tuple[EllipseSet, LocalProjection, np.ndarray, np.ndarray]:
     clat, clon = _projected_mean(lat, lon)
     proj = LocalProjection(clat, clon)
@@ -807,7 +821,7 @@ def _ellipse_set(
     for p in probabilities:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            e = ellipse_from_points(x, y, p)
+            e = ellipse_from_points(x, y, p, radius)
         for w in caught[:1] if p == probabilities[0] else []:
             warnings.warn(f"{what}: {w.message}", w.category, stacklevel=3)
         ex, ey = e.polygon_xy(n_vertices)
@@ -864,7 +878,10 @@ def compute_zones(
             stacklevel=2,
         )
     lat, lon, t_land = lat[ok], lon[ok], t_land[ok]
-    landing_set, proj, x, y = _ellipse_set(lat, lon, tuple(probabilities), "landing")
+    # Student-t members (a calibrated spread) are not a normal cloud: their ellipses hold the stated share
+    # of the members instead of using the normal distribution's radius.
+    radius = "empirical" if (result.wind_info or {}).get("spread_tail_dof") is not None else "normal"
+    landing_set, proj, x, y = _ellipse_set(lat, lon, tuple(probabilities), "landing", radius=radius)
 
     region = density_region(x, y, REGION_PROBABILITY, method=region_method)
     region_rings = []
@@ -876,7 +893,7 @@ def compute_zones(
     b_lon = np.asarray(result.burst.lon, dtype=float)[rows]
     b_ok = np.isfinite(b_lat) & np.isfinite(b_lon)
     if np.any(b_ok):
-        burst_set, _, _, _ = _ellipse_set(b_lat[b_ok], b_lon[b_ok], tuple(probabilities), "burst")
+        burst_set, _, _, _ = _ellipse_set(b_lat[b_ok], b_lon[b_ok], tuple(probabilities), "burst", radius=radius)
     else:
         burst_set = EllipseSet(float("nan"), float("nan"), (), ())
 

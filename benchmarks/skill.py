@@ -16,11 +16,12 @@ For each case (all invented, seeded by the case number):
    prior error model) and fused; each scored against the truth landing with :mod:`balloonpath.verify`.
 
 6. spread calibration (``--calibrate-cases K``, default 48): the method of ``verify --many``
-   (:func:`balloonpath.verify.fit_spread_factor`, minimum energy score) fits one spread factor per forecast
-   on K training cases numbered from ``TRAIN_FIRST`` (never the scored ones); each scored case is then also
-   forecast with that factor applied to its field (``with_spread_factor``, what ``[ensemble]
-   wind_spread_factor`` does) and scored as ``<name>_calibrated``. This is an out-of-sample test of the
-   calibration a team would run on its past flights.
+   (:func:`balloonpath.verify.fit_spread`: maximum likelihood of a scaled normal or Student-t on the truth
+   landings' Mahalanobis distances from their ensembles) fits scale and tails per forecast on K training
+   cases numbered from ``TRAIN_FIRST`` (never the scored ones); each scored case is then also forecast with
+   that calibration applied to its field (``with_spread_factor(c, nu)``, what ``[ensemble]
+   wind_spread_factor`` and ``wind_spread_tail_dof`` do) and scored as ``<name>_calibrated``. This is an
+   out-of-sample test of the calibration a team would run on its past flights.
 
 The vertical model is held exact (ensemble ascent/burst/descent spreads set to zero and the truth flies
 the plan's rates), so the coverage tests the WIND uncertainty alone, which is what the GP must get right.
@@ -58,10 +59,10 @@ from balloonpath.geodesy import inverse
 from balloonpath.plan import parse_plan
 from balloonpath.verify import (
     ZONE_PROBABILITIES,
-    SpreadTerms,
     energy_score,
-    fit_spread_factor,
+    fit_spread,
     inside_ellipses,
+    mahalanobis_d2,
     mahalanobis_rank,
 )
 from balloonpath.winds.aircraft import derive_observations
@@ -104,7 +105,7 @@ def _score(result, truth_lat: float, truth_lon: float) -> dict:
     pts = np.column_stack([zones.landing_x_m, zones.landing_y_m])
     err, _ = inverse(result.landing.lat[0], result.landing.lon[0], truth_lat, truth_lon)
     return {
-        "_terms": SpreadTerms.of(pts, [float(tx), float(ty)]),
+        "d2": mahalanobis_d2(pts, [float(tx), float(ty)]),
         "landing_error_m": float(err),
         "inside": {f"{p:.2f}": v for p, v in inside_ellipses(zones.ellipses, float(tx), float(ty)).items()},
         "rank": mahalanobis_rank(pts, [float(tx), float(ty)]),
@@ -190,8 +191,9 @@ def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
              shared_platform_error: bool | None = None) -> dict:
     """One twin experiment; returns the scores of both forecasts (deterministic in ``case``).
 
-    ``spread_factors`` ({"background": c_b, "fused": c_f}, fitted on other cases): also run each forecast
-    with its field's spread scaled (``with_spread_factor``), scored as ``"<name>_calibrated"``.
+    ``spread_factors`` ({"background": (c, nu), "fused": (c, nu)}, fitted on other cases): also run each
+    forecast with its field's spread calibrated (``with_spread_factor(c, nu)``; nu None: normal), scored as
+    ``"<name>_calibrated"``.
     """
     warnings.simplefilter("ignore")
     with tempfile.TemporaryDirectory() as tmp:
@@ -207,8 +209,9 @@ def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
             result = run_forecast(plan, winds=LoadedWinds(field, atm, {"sources": [name]}))
             out[name] = _score(result, t_lat, t_lon)
             if spread_factors:
-                scaled = field.with_spread_factor(spread_factors[name])
-                result = run_forecast(plan, winds=LoadedWinds(scaled, atm, {"sources": [name]}))
+                c, nu = spread_factors[name]
+                scaled = field.with_spread_factor(c, nu)
+                result = run_forecast(plan, winds=LoadedWinds(scaled, atm, {"sources": [name], "spread_tail_dof": nu}))
                 out[f"{name}_calibrated"] = _score(result, t_lat, t_lon)
         timings["forecasts_s"] = time.perf_counter() - clock
     z = np.asarray(obs.alt_m)
@@ -278,12 +281,15 @@ def main(argv: list[str] | None = None) -> int:
     if args.calibrate_cases > 0:
         train = _run_cases(list(range(TRAIN_FIRST, TRAIN_FIRST + args.calibrate_cases)), args, None, None)
         for name in ("background", "fused"):
-            fits[name] = fit_spread_factor([r[name]["_terms"] for r in train])
-        factors = {name: fit.factor for name, fit in fits.items()}
+            fits[name] = fit_spread([r[name]["d2"] for r in train])
+        factors = {name: (fit.scale, fit.tail_dof) for name, fit in fits.items()}
         for name, fit in fits.items():
-            print(f"spread factor fitted on {fit.flights} training cases, {name}: {fit.factor:.3f} "
-                  f"(5-95 %: {fit.interval[0]:.3f}-{fit.interval[1]:.3f}; mean energy score "
-                  f"{fit.energy_score_m / 1e3:.2f} -> {fit.energy_score_fitted_m / 1e3:.2f} km)")
+            nu = "normal" if fit.tail_dof is None else f"{fit.tail_dof:.1f}"
+            print(f"spread fitted on {fit.flights} training cases, {name}: scale {fit.scale:.3f} (5-95 %: "
+                  f"{fit.scale_interval[0]:.3f}-{fit.scale_interval[1]:.3f}), tails {nu} (5-95 %: "
+                  f"{fit.tail_dof_interval[0]:.1f}-{fit.tail_dof_interval[1]:.1f}); training coverage "
+                  + "/".join(f"{100 * v:.0f}" for v in fit.coverage.values()) + " % -> "
+                  + "/".join(f"{100 * v:.0f}" for v in fit.coverage_fitted.values()) + " %")
     cases = list(range(args.cases))
     rows: list[dict] = []
     hp = None
@@ -338,9 +344,7 @@ def main(argv: list[str] | None = None) -> int:
     print("binomial sd of a coverage with this many cases: "
           + ", ".join(f"{100 * math.sqrt(p * (1 - p) / n):.0f} pts at {p:.0%}" for p in ZONE_PROBABILITIES))
     if args.json is not None:
-        public = [{k: ({kk: vv for kk, vv in v.items() if kk != "_terms"} if isinstance(v, dict) else v)
-                   for k, v in r.items()} for r in rows]
-        args.json.write_text(json.dumps({"rows": public, "summary": s, "elapsed_s": elapsed}, indent=1) + "\n")
+        args.json.write_text(json.dumps({"rows": rows, "summary": s, "elapsed_s": elapsed}, indent=1) + "\n")
     return 0
 
 

@@ -44,19 +44,23 @@ def _print_many(console: Console, summary: object, out: Path) -> None:
                       f"{100 * (0.25 / agg['flights']) ** 0.5:.0f} points (binomial sd at 50 %).", style="yellow")
     spread = agg.get("spread") or {}
     if spread.get("fitted"):
-        lo, hi = spread["interval_5_95"]
-        es0, es1 = spread["mean_energy_score_m"] / 1e3, spread["mean_energy_score_fitted_m"] / 1e3
-        console.print(f"Spread: the zones would have scored best (mean energy score {es0:.2f} -> {es1:.2f} km)"
-                      f" with the wind spread times {spread['factor']:.2f} (5-95 %: {lo:.2f}-{hi:.2f}, "
-                      f"{spread['flights']} flights).")
-        if spread.get("plan_line"):
-            console.print(f"To use it, put in the plan's [ensemble] table:  {spread['plan_line']}", markup=False)
-        else:
-            console.print(spread.get("note", ""), markup=False)
-        if lo <= 1.0 <= hi:
+        lo, hi = spread["scale_interval_5_95"]
+        cov, fit = spread["coverage"], spread["coverage_fitted"]
+        nu = spread["tail_dof"]
+        tails = "normal tails" if nu is None else f"Student-t tails, {nu:.1f} degrees of freedom"
+        console.print(f"Spread: the flown landings fit the ensemble spread times {spread['scale']:.2f} (5-95 %: "
+                      f"{lo:.2f}-{hi:.2f}) with {tails}, over {spread['flights']} flights; zones holding "
+                      + "/".join(f"{100 * fit[k]:.0f}" for k in fit) + " % of them instead of "
+                      + "/".join(f"{100 * cov[k]:.0f}" for k in cov) + " % (in sample).", markup=False)
+        console.print("To use it, put in the plan's [ensemble] table:  " + "; ".join(spread["plan_lines"]),
+                      markup=False)
+        if spread.get("already_calibrated"):
+            console.print("(These flights were forecast with a calibrated spread; the values above replace it.)",
+                          markup=False)
+        if lo <= 1.0 <= hi and nu is None:
             console.print("The interval contains 1: these flights do not show the spread to be wrong.", style="yellow")
     elif spread:
-        console.print(f"Spread factor not fitted: {spread['reason']}.", style="yellow")
+        console.print(f"Spread not fitted: {spread['reason']}.", style="yellow")
     console.print(f"Table in {out / 'many.csv'} and {out / 'many.json'}; each flight in its own folder.")
 
 

@@ -333,12 +333,21 @@ class GPWindField:
         Region of the sample grids (set at fit time; change with :meth:`with_corridor`).
     info : dict
         Fit summary for ``summary.json["winds"]["gp"]``.
-    spread_factor : float
-        Multiplies the posterior standard deviation and every sampled deviation from the mean (1: the
-        model's own uncertainty; set with :meth:`with_spread_factor`, e.g. from ``verify --many``).
+    spread_factor, spread_tail_dof : float, float or None
+        Calibration of the spread (set with :meth:`with_spread_factor`, e.g. from ``verify --many``):
+        sampled deviations from the mean are multiplied by ``spread_factor`` (Gaussian) or by
+        ``spread_factor * sqrt(nu / V)``, V ~ chi2(nu), nu = ``spread_tail_dof`` (Student-t);
+        1 and None: the model's own uncertainty.
     """
 
     spread_factor: float = 1.0
+    spread_tail_dof: float | None = None
+
+    @property
+    def spread_variance_factor(self) -> float:
+        """Multiplier of the posterior variance implied by the calibration: c^2, or c^2 nu / (nu - 2)."""
+        nu = self.spread_tail_dof
+        return self.spread_factor**2 * (1.0 if nu is None else nu / (nu - 2.0))
 
     def __init__(
         self,
@@ -380,16 +389,16 @@ class GPWindField:
         shape = np.broadcast(np.asarray(lat), np.asarray(lon), np.asarray(alt_m), np.asarray(time_s)).shape
         if self.posterior is None:
             z_km = np.broadcast_to(np.asarray(alt_m, dtype=float), shape) / 1e3
-            s = self.hyperparameters.sigma_m_s * self.hyperparameters.g(z_km) * self.spread_factor
+            s = self.hyperparameters.sigma_m_s * self.hyperparameters.g(z_km) * np.sqrt(self.spread_variance_factor)
             return s, s.copy()
         _, var = self.posterior.mean_var(self._local(lat, lon, alt_m, time_s))
-        s = np.sqrt(var).reshape(shape) * self.spread_factor
+        s = np.sqrt(var * self.spread_variance_factor).reshape(shape)
         return s, s.copy()
 
     def covariance(self, lat, lon, alt_m, time_s) -> np.ndarray:
         """Posterior covariance (k, k) of one wind component (u and v alike) between k points, m^2/s^2.
 
-        Includes :attr:`spread_factor` (squared); its diagonal is :meth:`std` squared. Used to compute the
+        Includes :attr:`spread_variance_factor`; its diagonal is :meth:`std` squared. Used to compute the
         predicted error of a quantity that integrates the wind along a path (e.g. a balloon's drift through
         a layer: w^T C w with w the time steps), as in ``benchmarks/skill_layers.py``.
         """
@@ -398,25 +407,30 @@ class GPWindField:
             cov = se_kernel(xs, xs, self.hyperparameters)
         else:
             cov = self.posterior.covariance(xs)
-        return cov * self.spread_factor**2
+        return cov * self.spread_variance_factor
 
     def coverage(self) -> Coverage:
         """The background's coverage."""
         return self.background.coverage()
 
     # -- corridor and samples
-    def with_spread_factor(self, factor: float) -> GPWindField:
-        """The same field with its uncertainty scaled: sd and sampled deviations times ``factor`` (> 0).
+    def with_spread_factor(self, factor: float, tail_dof: float | None = None) -> GPWindField:
+        """The same field with a calibrated spread: sampled deviations times ``factor`` (and, with
+        ``tail_dof`` = nu > 2, times sqrt(nu / V), V ~ chi2(nu) per member: Student-t members).
 
-        A calibration of the spread learned from verified flights (``balloonpath verify --many``,
-        :func:`balloonpath.verify.fit_spread_factor`); the mean wind is unchanged.
+        A calibration learned from verified flights (``balloonpath verify --many``,
+        :func:`balloonpath.verify.fit_spread`); the mean wind is unchanged; :meth:`std` and
+        :meth:`covariance` carry :attr:`spread_variance_factor`.
         """
         factor = float(factor)
         if not (np.isfinite(factor) and factor > 0.0):
             raise ValueError(f"spread factor must be finite and > 0, got {factor}")
+        if tail_dof is not None and not (np.isfinite(tail_dof) and tail_dof > 2.0):
+            raise ValueError(f"spread tail degrees of freedom must be > 2, got {tail_dof}")
         out = self.__class__.__new__(self.__class__)
         out.__dict__.update(self.__dict__)
         out.spread_factor = factor
+        out.spread_tail_dof = None if tail_dof is None else float(tail_dof)
         return out
 
     def with_corridor(
@@ -493,7 +507,7 @@ class GPWindField:
         sampler = GridSampler(grid, hp.lengths(), hp.sigma_m_s, self.posterior, use, hp.profile)
         mean = self.posterior.mean_on_grid(grid) if self.posterior is not None else np.zeros((grid.size, 2))
         return MemberSampler(self.background, self._fast_projection(), self.corridor.time_ref_s, sampler, mean,
-                             self.spread_factor)
+                             self.spread_factor, self.spread_tail_dof)
 
     def sample_members(
         self, member_ids: np.ndarray, seed: int, n_total: int | None = None,
@@ -551,8 +565,15 @@ class GPWindField:
         )
         return GridMemberWinds(
             self.background, fast, self.corridor.time_ref_s, grid, hp.lengths(), mean, dev, profile=hp.profile,
-            spread_factor=self.spread_factor,
+            member_scale=self._sample_scales(n_members, rng),
         )
+
+    def _sample_scales(self, n_members: int, rng: np.random.Generator) -> np.ndarray | float:
+        """Spread multipliers of :meth:`sample`'s members (drawn from ``rng`` after the deviations)."""
+        if self.spread_tail_dof is None:
+            return self.spread_factor
+        nu = self.spread_tail_dof
+        return self.spread_factor * np.sqrt(nu / rng.chisquare(nu, n_members))
 
     # -- persistence
     def save(self, path: str | Path) -> Path:

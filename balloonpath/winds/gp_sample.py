@@ -27,6 +27,10 @@ References
     pathwise conditioning).
 [Saatci2012] Y. Saatci, Scalable inference for structured Gaussian process models, PhD thesis, Cambridge
     2012, ch. 5 (Kronecker matrix-vector products for separable kernels on grids); from memory.
+[Shah2014] A. Shah, A. G. Wilson & Z. Ghahramani, "Student-t processes as alternatives to Gaussian
+    processes", Proc. 17th AISTATS, PMLR 33 (2014): a Student-t process as a Gaussian process whose scale
+    has an inverse-gamma prior (the calibrated spread's members, :func:`member_spread_multipliers`); from
+    memory.
 """
 
 from __future__ import annotations
@@ -57,6 +61,8 @@ SPACING_FRACTION = 1.0 / 3.0
 BATCH_MEMBERS = 32
 #: Child index of a member's SeedSequence that feeds its wind realisation (see :func:`member_wind_generator`).
 WIND_STREAM_CHILD = 1
+#: Child of a member's seed sequence that draws its spread multiplier (:func:`member_spread_multipliers`).
+SPREAD_STREAM_CHILD = 2
 
 
 class FastProjection:
@@ -389,15 +395,17 @@ class GridMemberWinds:
         deviations: np.ndarray,
         member_ids: np.ndarray | None = None,
         profile: str = "uniform",
-        spread_factor: float = 1.0,
+        member_scale: np.ndarray | float = 1.0,
     ) -> None:
         """``member_ids`` (optional, distinct, >= 0): the member number of each row of ``deviations``
         (a chunk of a larger ensemble); default rows 0..N-1. ``profile``: altitude profile that scales the
-        deviations at the evaluation point. ``spread_factor``: multiplies every deviation (a calibration of
-        the spread, ``[ensemble] wind_spread_factor``); the mean is unchanged."""
+        deviations at the evaluation point. ``member_scale``: multiplier of each row's deviation (scalar or
+        one per row; a calibration of the spread, :func:`member_spread_multipliers`); the mean is unchanged."""
         self.background = background
         self.profile = profile
-        self.spread_factor = float(spread_factor)
+        scale = np.asarray(member_scale, dtype=float)
+        self.member_scale = None if scale.ndim == 0 and float(scale) == 1.0 else np.broadcast_to(
+            scale, (deviations.shape[0],)).copy()
         self.projection = projection
         self.time_ref_s = float(time_ref_s)
         self.grid = grid
@@ -445,8 +453,8 @@ class GridMemberWinds:
         dev = np.matmul(w3, np.take(self._flat, idx + (members * self._size)[:, None], axis=0))[:, 0, :]
         if self.profile != "uniform":
             c = c * altitude_profile(pts[:, 2], self.profile)
-        if self.spread_factor != 1.0:
-            c = c * self.spread_factor
+        if self.member_scale is not None:
+            c = c * self.member_scale[members]
         out = mean + c[:, None] * dev
         return out[:, 0], out[:, 1]
 
@@ -471,6 +479,45 @@ def member_wind_generator(seed: int, member: int) -> np.random.Generator:
     return np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(int(member), WIND_STREAM_CHILD)))
 
 
+def member_spread_multipliers(seed: int, members: np.ndarray, factor: float = 1.0,
+                              tail_dof: float | None = None) -> np.ndarray:
+    """Multiplier of each member's wind deviation: ``factor`` (Gaussian) or ``factor * sqrt(nu / V)``.
+
+    Parameters
+    ----------
+    seed : int
+        The ensemble's seed.
+    members : array_like of int
+        Member numbers.
+    factor : float
+        Scale c of the spread (``[ensemble] wind_spread_factor``).
+    tail_dof : float, optional
+        Degrees of freedom nu > 2 of a Student-t spread (``[ensemble] wind_spread_tail_dof``); None: Gaussian.
+
+    Returns
+    -------
+    ndarray
+        One multiplier per member. With ``tail_dof``, V ~ chi-square(nu) from
+        ``SeedSequence(seed, spawn_key=(member, SPREAD_STREAM_CHILD))``, so each member's multiplier depends
+        on (seed, member) only.
+
+    Notes
+    -----
+    A Gaussian draw times sqrt(nu / V), V ~ chi2(nu) independent, is Student-t with nu degrees of freedom
+    (the normal / inverse-gamma scale mixture; the Student-t process of [Shah2014] in the same
+    representation), so the members' deviations follow a t process with scale c times the GP posterior:
+    heavier tails and a narrower core than the Gaussian of the same variance, c^2 nu / (nu - 2) times the
+    GP's.
+    """
+    ids = np.asarray(members, dtype=np.int64).ravel()
+    if tail_dof is None:
+        return np.full(ids.size, float(factor))
+    nu = float(tail_dof)
+    v = np.array([np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(int(i), SPREAD_STREAM_CHILD)))
+                  .chisquare(nu) for i in ids])
+    return float(factor) * np.sqrt(nu / v)
+
+
 class MemberSampler:
     """Everything a set of members needs to draw their realisations on one grid (built once, reused).
 
@@ -491,8 +538,10 @@ class MemberSampler:
         sampler: GridSampler,
         mean_nodes: np.ndarray,
         spread_factor: float = 1.0,
+        tail_dof: float | None = None,
     ) -> None:
         self.spread_factor = float(spread_factor)
+        self.tail_dof = tail_dof
         self.background = background
         self.projection = projection
         self.time_ref_s = float(time_ref_s)
@@ -531,5 +580,6 @@ class MemberSampler:
             dev[want, :, 1] = fields[b + pos]
         return GridMemberWinds(
             self.background, self.projection, self.time_ref_s, self.grid, self.sampler.lengths,
-            self.mean_nodes, dev, member_ids=ids, profile=self.sampler.profile, spread_factor=self.spread_factor,
+            self.mean_nodes, dev, member_ids=ids, profile=self.sampler.profile,
+            member_scale=member_spread_multipliers(seed, ids, self.spread_factor, self.tail_dof),
         )
