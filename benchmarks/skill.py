@@ -31,8 +31,9 @@ Printed: per case the landing errors, the cut in percent and whether the truth l
 and the mean energy score [GneitingRaftery2007]. Run::
 
     .venv/bin/python benchmarks/skill.py --workers 2               # 24 scored + 48 training cases
-    .venv/bin/python benchmarks/skill.py --cases 96 --workers 2 --json skill.json
+    .venv/bin/python benchmarks/skill.py --cases 96 --calibrate-cases 96 --workers 2 --json A.json
     .venv/bin/python benchmarks/skill.py --calibrate-cases 0       # no calibration (half the time)
+    .venv/bin/python benchmarks/skill.py --pool A.json B.json      # cross-validated calibration of saved runs
 
 With 24 cases the coverage of one zone has a binomial standard deviation of about 10 points at 50 % and 4-6
 points at 90-95 % (96 cases: 5 / 3 / 2): read the rank (PIT) mean and histogram beside it.
@@ -64,6 +65,7 @@ from balloonpath.verify import (
     inside_ellipses,
     mahalanobis_d2,
     mahalanobis_rank,
+    spread_radius2,
 )
 from balloonpath.winds.aircraft import derive_observations
 from balloonpath.winds.gp import background_error_sigma, fit_wind_field
@@ -253,6 +255,10 @@ def main(argv: list[str] | None = None) -> int:
     """Run the benchmark and print the table."""
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--cases", type=int, default=24)
+    ap.add_argument("--first", type=int, default=0, help="number of the first scored case")
+    ap.add_argument("--cross-validate", type=int, default=8, metavar="K",
+                    help="also print the K-fold cross-validated coverage of the spread calibration over all raw "
+                    "cases (scored and training), computed from the distances (no re-run)")
     ap.add_argument("--members", type=int, default=200)
     ap.add_argument("--workers", type=int, default=1, help="processes (the cases are independent)")
     ap.add_argument("--learn", choices=("each", "once"), default="each",
@@ -273,11 +279,34 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--shared-platform-error", choices=("on", "off"), default=None,
                     help="diagnosis: force the GP's per-aircraft shared error on or off (default: the pipeline's)")
     ap.add_argument("--json", type=Path, default=None, help="also write the rows and summary here")
+    ap.add_argument("--pool", type=Path, nargs="+", default=None, metavar="JSON",
+                    help="no run: pool the rows (scored and training) of earlier --json files and print the "
+                    "--cross-validate K coverage over them (default K = 8)")
     args = ap.parse_args(argv)
+    if args.pool:
+        pooled = []
+        for path in args.pool:
+            doc = json.loads(path.read_text())
+            pooled += doc["rows"] + doc.get("training_rows", [])
+        pooled = list({r["case"]: r for r in pooled}.values())  # a case counted once
+        k = args.cross_validate if args.cross_validate > 1 else 8
+        for name in ("background", "fused"):
+            q = [r[name]["d2"] for r in pooled]
+            raw = {f"{p:.2f}": float(np.mean([r[name]["inside"][f"{p:.2f}"] for r in pooled]))
+                   for p in ZONE_PROBABILITIES}
+            fit = fit_spread(q)
+            cv = cross_validated_coverage(q, k)
+            nu = "normal" if fit.tail_dof is None else f"{fit.tail_dof:.1f}"
+            print(f"{name}: {len(pooled)} cases; raw coverage " + "/".join(f"{100 * v:.0f}" for v in raw.values())
+                  + f" %; fit on all: scale {fit.scale:.3f} ({fit.scale_interval[0]:.3f}-{fit.scale_interval[1]:.3f}),"
+                  f" tails {nu}; {k}-fold cross-validated calibrated coverage "
+                  + "/".join(f"{100 * v:.1f}" for v in cv.values()) + " %")
+        return 0
     if args.shared_platform_error is not None:
         args.shared_platform_error = args.shared_platform_error == "on"
     start = time.perf_counter()
     factors, fits = None, {}
+    train: list[dict] = []
     if args.calibrate_cases > 0:
         train = _run_cases(list(range(TRAIN_FIRST, TRAIN_FIRST + args.calibrate_cases)), args, None, None)
         for name in ("background", "fused"):
@@ -290,11 +319,11 @@ def main(argv: list[str] | None = None) -> int:
                   f"{fit.tail_dof_interval[0]:.1f}-{fit.tail_dof_interval[1]:.1f}); training coverage "
                   + "/".join(f"{100 * v:.0f}" for v in fit.coverage.values()) + " % -> "
                   + "/".join(f"{100 * v:.0f}" for v in fit.coverage_fitted.values()) + " %")
-    cases = list(range(args.cases))
+    cases = list(range(args.first, args.first + args.cases))
     rows: list[dict] = []
     hp = None
     if args.learn == "once":
-        first = run_case(0, args.members, None, args.heading_bias_fraction, args.error_model, args.qc_reference,
+        first = run_case(cases[0], args.members, None, args.heading_bias_fraction, args.error_model, args.qc_reference,
                          factors, args.shared_platform_error)
         rows.append(first)
         hp = dict(first["hyperparameters"])
@@ -340,12 +369,41 @@ def main(argv: list[str] | None = None) -> int:
     for name in ("background", "fused"):
         if name in fits:
             s[f"{name}_spread_fit"] = fits[name].as_dict()
+    if args.cross_validate > 1 and len(rows) + len(train) < max(10, args.cross_validate):
+        print(f"cross-validation skipped: {len(rows) + len(train)} cases (needs at least "
+              f"{max(10, args.cross_validate)})")
+    elif args.cross_validate > 1:
+        for name in ("background", "fused"):
+            cv = cross_validated_coverage([r[name]["d2"] for r in rows + train], args.cross_validate)
+            s[f"{name}_cross_validated"] = cv
+            print(f"{name:>21}: {args.cross_validate}-fold cross-validated calibrated coverage over "
+                  f"{len(rows) + len(train)} cases = " + "/".join(f"{100 * v:.0f}" for v in cv.values()) + " %")
     n = s["cases"]
     print("binomial sd of a coverage with this many cases: "
           + ", ".join(f"{100 * math.sqrt(p * (1 - p) / n):.0f} pts at {p:.0%}" for p in ZONE_PROBABILITIES))
     if args.json is not None:
-        args.json.write_text(json.dumps({"rows": rows, "summary": s, "elapsed_s": elapsed}, indent=1) + "\n")
+        args.json.write_text(json.dumps({"rows": rows, "training_rows": train, "summary": s, "elapsed_s": elapsed},
+                                        indent=1) + "\n")
     return 0
+
+
+def cross_validated_coverage(d2: list[float], k: int, seed: int = 0) -> dict[str, float]:
+    """Share of cases inside the calibrated 50/90/95 % zones when each fold is calibrated on the others.
+
+    The cases are split into ``k`` seeded random folds; for each, :func:`balloonpath.verify.fit_spread` on
+    the other folds gives (c, nu) and a held-out case is inside zone p when its d^2 is below
+    ``spread_radius2(p, c, nu)``. This is the zone a calibrated forecast would draw if its members were
+    exactly the scaled normal or Student-t (landings respond almost linearly to the winds; the re-run
+    forecasts of ``--calibrate-cases`` check it without that approximation).
+    """
+    q = np.asarray(d2, dtype=float)
+    folds = np.random.default_rng(seed).permutation(q.size) % k
+    inside = {f"{p:.2f}": 0 for p in ZONE_PROBABILITIES}
+    for f in range(k):
+        fit = fit_spread(q[folds != f], n_bootstrap=0)
+        for p in ZONE_PROBABILITIES:
+            inside[f"{p:.2f}"] += int(np.count_nonzero(q[folds == f] <= spread_radius2(p, fit.scale, fit.tail_dof)))
+    return {key: v / q.size for key, v in inside.items()}
 
 
 def _run_cases(cases: list[int], args: argparse.Namespace, hp: dict | None, factors: dict | None) -> list[dict]:
