@@ -427,10 +427,13 @@ class GPWindField:
             raise ValueError(f"spread factor must be finite and > 0, got {factor}")
         if tail_dof is not None and not (np.isfinite(tail_dof) and tail_dof > 2.0):
             raise ValueError(f"spread tail degrees of freedom must be > 2, got {tail_dof}")
+        return self._with(spread_factor=factor, spread_tail_dof=None if tail_dof is None else float(tail_dof))
+
+    def _with(self, **attributes: object) -> GPWindField:
+        """A shallow copy of this field (same class) with some attributes replaced."""
         out = self.__class__.__new__(self.__class__)
         out.__dict__.update(self.__dict__)
-        out.spread_factor = factor
-        out.spread_tail_dof = None if tail_dof is None else float(tail_dof)
+        out.__dict__.update(attributes)
         return out
 
     def with_corridor(
@@ -462,10 +465,7 @@ class GPWindField:
             alt_min_m=float(alt_min_m), alt_max_m=float(alt_max_m),
             time_min_s=float(time_min_s), time_max_s=float(time_max_s),
         )
-        out = self.__class__.__new__(self.__class__)
-        out.__dict__.update(self.__dict__)
-        out.corridor = c
-        return out
+        return self._with(corridor=c)
 
     def sample_grid(self, n_members: int, memory_budget_bytes: int = MEMORY_BUDGET_BYTES) -> CorridorGrid:
         """The grid used for ``n_members`` members (node budget from the memory budget)."""
@@ -555,17 +555,9 @@ class GPWindField:
             dev[m0 : m0 + b, :, 0] = fields[:b]
             dev[m0 : m0 + b, :, 1] = fields[b:]
         mean = self.posterior.mean_on_grid(grid) if self.posterior is not None else np.zeros((grid.size, 2))
-        lo, hi = self.corridor.box()
-        lat_c, lon_c = self.projection.to_geographic(
-            np.array([lo[0], hi[0], lo[0], hi[0], 0.0]) * 1e3, np.array([lo[1], lo[1], hi[1], hi[1], 0.0]) * 1e3
-        )
-        dlon = normalize_longitude(lon_c - self.corridor.lon0)
-        fast = FastProjection(
-            self.projection, float(lat_c.min()) - 0.2, float(lat_c.max()) + 0.2, float(np.abs(dlon).max()) + 0.2
-        )
         return GridMemberWinds(
-            self.background, fast, self.corridor.time_ref_s, grid, hp.lengths(), mean, dev, profile=hp.profile,
-            member_scale=self._sample_scales(n_members, rng),
+            self.background, self._fast_projection(), self.corridor.time_ref_s, grid, hp.lengths(), mean, dev,
+            profile=hp.profile, member_scale=self._sample_scales(n_members, rng),
         )
 
     def _sample_scales(self, n_members: int, rng: np.random.Generator) -> np.ndarray | float:
