@@ -34,6 +34,7 @@ and the mean energy score [GneitingRaftery2007]. Run::
     .venv/bin/python benchmarks/skill.py --cases 96 --calibrate-cases 96 --workers 2 --json A.json
     .venv/bin/python benchmarks/skill.py --calibrate-cases 0       # no calibration (half the time)
     .venv/bin/python benchmarks/skill.py --pool A.json B.json      # cross-validated calibration of saved runs
+    .venv/bin/python benchmarks/skill.py --refit-folds A.json B.json --workers 2   # the same, forecasts re-run
 
 With 24 cases the coverage of one zone has a binomial standard deviation of about 10 points at 50 % and 4-6
 points at 90-95 % (96 cases: 5 / 3 / 2): read the rank (PIT) mean and histogram beside it.
@@ -190,12 +191,12 @@ def build_case(case: int, folder: Path, members: int = 200, hyperparameters: dic
 def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
              heading_bias_fraction: float = 0.15, error_model: str = "jet+eddies",
              qc_reference: str = "background", spread_factors: dict | None = None,
-             shared_platform_error: bool | None = None) -> dict:
+             shared_platform_error: bool | None = None, calibrated_only: bool = False) -> dict:
     """One twin experiment; returns the scores of both forecasts (deterministic in ``case``).
 
     ``spread_factors`` ({"background": (c, nu), "fused": (c, nu)}, fitted on other cases): also run each
     forecast with its field's spread calibrated (``with_spread_factor(c, nu)``; nu None: normal), scored as
-    ``"<name>_calibrated"``.
+    ``"<name>_calibrated"``; ``calibrated_only`` skips the uncalibrated forecasts.
     """
     warnings.simplefilter("ignore")
     with tempfile.TemporaryDirectory() as tmp:
@@ -208,8 +209,9 @@ def run_case(case: int, members: int = 200, hyperparameters: dict | None = None,
         t_lat, t_lon = float(truth_traj.landing_lat[0]), float(truth_traj.landing_lon[0])
         out = {}
         for name, field in (("background", prior), ("fused", fused)):
-            result = run_forecast(plan, winds=LoadedWinds(field, atm, {"sources": [name]}))
-            out[name] = _score(result, t_lat, t_lon)
+            if not calibrated_only:
+                result = run_forecast(plan, winds=LoadedWinds(field, atm, {"sources": [name]}))
+                out[name] = _score(result, t_lat, t_lon)
             if spread_factors:
                 c, nu = spread_factors[name]
                 scaled = field.with_spread_factor(c, nu)
@@ -279,10 +281,16 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--shared-platform-error", choices=("on", "off"), default=None,
                     help="diagnosis: force the GP's per-aircraft shared error on or off (default: the pipeline's)")
     ap.add_argument("--json", type=Path, default=None, help="also write the rows and summary here")
+    ap.add_argument("--refit-folds", type=Path, nargs="+", default=None, metavar="JSON",
+                    help="cross-validation with re-run forecasts: pool the cases of earlier --json files, split "
+                    "them by case parity, calibrate each half on the other half's distances and re-run its "
+                    "forecasts with that calibration")
     ap.add_argument("--pool", type=Path, nargs="+", default=None, metavar="JSON",
                     help="no run: pool the rows (scored and training) of earlier --json files and print the "
                     "--cross-validate K coverage over them (default K = 8)")
     args = ap.parse_args(argv)
+    if args.refit_folds:
+        return _refit_folds(args)
     if args.pool:
         pooled = []
         for path in args.pool:
@@ -387,6 +395,39 @@ def main(argv: list[str] | None = None) -> int:
     return 0
 
 
+def _refit_folds(args: argparse.Namespace) -> int:
+    """``--refit-folds``: two folds by case parity, each calibrated on the other and re-run."""
+    start = time.perf_counter()
+    pooled = []
+    for path in args.refit_folds:
+        doc = json.loads(path.read_text())
+        pooled += doc["rows"] + doc.get("training_rows", [])
+    pooled = sorted({r["case"]: r for r in pooled}.values(), key=lambda r: r["case"])
+    rows: list[dict] = []
+    for fold in (0, 1):
+        other = [r for r in pooled if r["case"] % 2 != fold]
+        fits = {name: fit_spread([r[name]["d2"] for r in other], n_bootstrap=0) for name in ("background", "fused")}
+        factors = {name: (fit.scale, fit.tail_dof) for name, fit in fits.items()}
+        print(f"fold {fold}: calibrated on {len(other)} cases: " + "; ".join(
+            f"{name} scale {c:.3f}, tails {'normal' if nu is None else f'{nu:.1f}'}"
+            for name, (c, nu) in factors.items()))
+        rows += _run_cases([r["case"] for r in pooled if r["case"] % 2 == fold], args, None, factors,
+                           calibrated_only=True)
+    out = {}
+    for name in ("background_calibrated", "fused_calibrated"):
+        cov = {f"{p:.2f}": float(np.mean([r[name]["inside"][f"{p:.2f}"] for r in rows])) for p in ZONE_PROBABILITIES}
+        ranks = [r[name]["rank"] for r in rows]
+        out[name] = {"coverage": cov, "mean_rank": float(np.mean(ranks)),
+                     "rank_histogram": np.histogram(ranks, bins=5, range=(0, 1))[0].tolist()}
+        print(f"{name:>21}: re-run 2-fold cross-validated coverage over {len(rows)} cases = "
+              + "/".join(f"{100 * v:.1f}" for v in cov.values()) + f" %; mean rank {out[name]['mean_rank']:.2f}, "
+              f"rank histogram {out[name]['rank_histogram']}")
+    print(f"{time.perf_counter() - start:.0f} s on {args.workers} worker(s)")
+    if args.json is not None:
+        args.json.write_text(json.dumps({"rows": rows, "summary": out}, indent=1) + "\n")
+    return 0
+
+
 def cross_validated_coverage(d2: list[float], k: int, seed: int = 0) -> dict[str, float]:
     """Share of cases inside the calibrated 50/90/95 % zones when each fold is calibrated on the others.
 
@@ -406,11 +447,12 @@ def cross_validated_coverage(d2: list[float], k: int, seed: int = 0) -> dict[str
     return {key: v / q.size for key, v in inside.items()}
 
 
-def _run_cases(cases: list[int], args: argparse.Namespace, hp: dict | None, factors: dict | None) -> list[dict]:
+def _run_cases(cases: list[int], args: argparse.Namespace, hp: dict | None, factors: dict | None,
+               calibrated_only: bool = False) -> list[dict]:
     """run_case over ``cases`` (in ``args.workers`` processes), in case order."""
     k = len(cases)
     extra = ([args.members] * k, [hp] * k, [args.heading_bias_fraction] * k, [args.error_model] * k,
-             [args.qc_reference] * k, [factors] * k, [args.shared_platform_error] * k)
+             [args.qc_reference] * k, [factors] * k, [args.shared_platform_error] * k, [calibrated_only] * k)
     if args.workers > 1:
         with ProcessPoolExecutor(max_workers=args.workers) as pool:
             return list(pool.map(run_case, cases, *extra))
