@@ -292,11 +292,7 @@ def main(argv: list[str] | None = None) -> int:
     if args.refit_folds:
         return _refit_folds(args)
     if args.pool:
-        pooled = []
-        for path in args.pool:
-            doc = json.loads(path.read_text())
-            pooled += doc["rows"] + doc.get("training_rows", [])
-        pooled = list({r["case"]: r for r in pooled}.values())  # a case counted once
+        pooled = load_rows(args.pool)
         k = args.cross_validate if args.cross_validate > 1 else 8
         for name in ("background", "fused"):
             q = [r[name]["d2"] for r in pooled]
@@ -395,14 +391,19 @@ def main(argv: list[str] | None = None) -> int:
     return 0
 
 
+def load_rows(paths: list[Path]) -> list[dict]:
+    """The case rows (scored and training) of earlier ``--json`` files, each case once, in case order."""
+    rows: list[dict] = []
+    for path in paths:
+        doc = json.loads(path.read_text())
+        rows += doc["rows"] + doc.get("training_rows", [])
+    return sorted({r["case"]: r for r in rows}.values(), key=lambda r: r["case"])
+
+
 def _refit_folds(args: argparse.Namespace) -> int:
     """``--refit-folds``: two folds by case parity, each calibrated on the other and re-run."""
     start = time.perf_counter()
-    pooled = []
-    for path in args.refit_folds:
-        doc = json.loads(path.read_text())
-        pooled += doc["rows"] + doc.get("training_rows", [])
-    pooled = sorted({r["case"]: r for r in pooled}.values(), key=lambda r: r["case"])
+    pooled = load_rows(args.refit_folds)
     rows: list[dict] = []
     for fold in (0, 1):
         other = [r for r in pooled if r["case"] % 2 != fold]
